@@ -1,0 +1,55 @@
+"""When two results count as the same. Each rule is a small function, documented and tested.
+
+Rules (docs/semantics.md, "Comparing results"):
+1. null equals null, and only null.
+2. Errors are equal when their error class is equal (details are free text and ignored).
+3. NaN equals NaN, whatever its sign or payload (IEEE 754 6.2: payloads are not portable).
+4. -0.0 equals 0.0: no filter can tell them apart except through a cast to string, and the
+   string result is compared as a string.
+5. Other floats are equal within ``FLOAT_ULPS`` units in the last place, because engines'
+   math libraries may differ by an ulp in ln, exp, power (IEEE 754 9.2 recommends, but does
+   not require, correct rounding of those). Arithmetic, sqrt and casts are exact in practice.
+6. Everything else compares with Python ==, after the type check: a bool is never equal to
+   an int, an int never to a float.
+"""
+
+from __future__ import annotations
+
+import math
+import struct
+
+from rexpr.values import RowError
+
+FLOAT_ULPS = 2
+
+
+def _ordered_bits(x: float) -> int:
+    bits = struct.unpack("<q", struct.pack("<d", x))[0]
+    return bits if bits >= 0 else -(bits & 0x7FFFFFFFFFFFFFFF)
+
+
+def ulp_distance(a: float, b: float) -> int:
+    return abs(_ordered_bits(a) - _ordered_bits(b))
+
+
+def floats_agree(a: float, b: float, ulps: int = FLOAT_ULPS) -> bool:
+    if math.isnan(a) or math.isnan(b):
+        return math.isnan(a) and math.isnan(b)
+    if a == b:  # covers -0.0 == 0.0 and equal infinities
+        return True
+    if math.isinf(a) or math.isinf(b):
+        return False
+    return ulp_distance(a, b) <= ulps
+
+
+def same_result(expected: object, observed: object) -> bool:
+    if expected is None or observed is None:
+        return expected is None and observed is None
+    if isinstance(expected, RowError) or isinstance(observed, RowError):
+        return (isinstance(expected, RowError) and isinstance(observed, RowError)
+                and expected.error == observed.error)
+    if type(expected) is not type(observed):
+        return False
+    if isinstance(expected, float):
+        return floats_agree(expected, observed)  # type: ignore[arg-type]
+    return expected == observed

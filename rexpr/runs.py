@@ -1,0 +1,105 @@
+"""Evaluate one compiled expression on a named engine and compare with the reference.
+
+Local backends (reference, arrow, numpy) run in-process; SQL engines go through the SQL
+lowering and the engine runners. Each run ends in one of four statuses."""
+
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass, field
+from typing import Literal
+
+import pyarrow as pa
+
+from rexpr.api import CompiledExpression
+from rexpr.backends import LOCAL_BACKENDS
+from rexpr.compare import same_result
+from rexpr.errors import EngineUnavailable, InputProblem, NotPushable, RexprError
+from rexpr.evaluation import Evaluation
+
+SQL_ENGINES = ("duckdb", "sqlite", "postgres", "mariadb")
+ALL_ENGINES = LOCAL_BACKENDS + SQL_ENGINES
+Status = Literal["agree", "disagree", "unavailable", "not_pushable"]
+
+
+@dataclass(frozen=True)
+class Disagreement:
+    row: int
+    expected: object
+    observed: object
+
+
+@dataclass(frozen=True)
+class EngineRun:
+    engine: str
+    status: Status
+    rows: int = 0
+    disagreements: tuple[Disagreement, ...] = ()
+    reason: str = ""
+    sql: str | None = None
+    values: tuple[object, ...] = field(default=(), repr=False)
+
+
+def parse_engine_list(text: str | None) -> tuple[str, ...]:
+    if not text:
+        return ALL_ENGINES
+    names = tuple(dict.fromkeys(part.strip() for part in text.split(",") if part.strip()))
+    for name in names:
+        if name not in ALL_ENGINES:
+            close = difflib.get_close_matches(name, ALL_ENGINES, n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else f"; known engines: {', '.join(ALL_ENGINES)}"
+            raise InputProblem(f"unknown engine {name!r}{hint}", code="unknown_engine")
+    return names
+
+
+def compare(expected: list[object], observed: list[object], limit: int = 1000) -> tuple[Disagreement, ...]:
+    out = []
+    for row, (e, o) in enumerate(zip(expected, observed)):
+        if not same_result(e, o):
+            out.append(Disagreement(row, e, o))
+            if len(out) >= limit:
+                break
+    return tuple(out)
+
+
+def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table, lowering: str) -> tuple[Evaluation, str]:
+    try:
+        from rexpr.sql.lowering import lower, to_sql
+        from rexpr.engines import get_engine
+        from rexpr.engines.base import SqlItem
+    except ImportError as exc:  # pragma: no cover - only while a part is not installed
+        raise EngineUnavailable(f"SQL support is not available: {exc}") from None
+    expression = lower(compiled.tree, engine, lowering)  # type: ignore[arg-type]
+    sql = to_sql(compiled.tree, engine, lowering)  # type: ignore[arg-type]
+    runner = get_engine(engine)
+    status = runner.availability()
+    if not status.available:
+        raise EngineUnavailable(status.reason)
+    try:
+        [result] = runner.evaluate(table, [SqlItem("value", expression, compiled.type)])
+    finally:
+        runner.close()
+    return result.evaluation, sql
+
+
+def run_on(engine: str, compiled: CompiledExpression, table: pa.Table, expected: list[object],
+           lowering: str = "faithful") -> EngineRun:
+    """Evaluate on one engine; an engine that cannot run says so instead of failing the others."""
+    sql = None
+    try:
+        if engine in LOCAL_BACKENDS:
+            evaluation = compiled.evaluate(table, backend=engine)
+        else:
+            evaluation, sql = _evaluate_sql(engine, compiled, table, lowering)
+    except NotPushable as exc:
+        return EngineRun(engine, "not_pushable", reason=exc.message)
+    except EngineUnavailable as exc:
+        return EngineRun(engine, "unavailable", reason=exc.message, sql=sql)
+    except RexprError as exc:
+        if exc.code in ("engine_unavailable",):
+            return EngineRun(engine, "unavailable", reason=exc.message, sql=sql)
+        raise
+    observed = evaluation.to_pylist()
+    problems = compare(expected, observed)
+    return EngineRun(engine, "disagree" if problems else "agree", len(observed), problems, sql=sql,
+                     values=tuple(observed))
