@@ -119,9 +119,6 @@ class _Builder(Transformer):
         return self._made(n.Literal(kind, value, span, text))
 
     # names and fields
-    def name(self, tok: Token) -> Token:
-        return tok
-
     def field(self, *names: Token) -> n.Node:
         path = tuple(_unquote(str(t), '"') if t.type == "QUOTED_NAME" else str(t) for t in names)
         return self._made(n.FieldRef(path, _covering(*names)))
