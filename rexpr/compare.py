@@ -53,3 +53,17 @@ def same_result(expected: object, observed: object) -> bool:
     if isinstance(expected, float):
         return floats_agree(expected, observed)  # type: ignore[arg-type]
     return expected == observed
+
+
+def row_differences(expected: list[object], observed: list[object], limit: int = 1000) -> list[tuple[int, object, object]]:
+    """(row, expected, observed) for each row that differs, up to ``limit``; a length mismatch is
+    reported as row -1."""
+    out: list[tuple[int, object, object]] = []
+    for row, (e, o) in enumerate(zip(expected, observed)):
+        if not same_result(e, o):
+            out.append((row, e, o))
+            if len(out) >= limit:
+                return out
+    if len(expected) != len(observed):
+        out.append((-1, f"{len(expected)} rows", f"{len(observed)} rows"))
+    return out

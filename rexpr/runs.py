@@ -13,7 +13,7 @@ import pyarrow as pa
 
 from rexpr.api import CompiledExpression
 from rexpr.backends import LOCAL_BACKENDS
-from rexpr.compare import same_result
+from rexpr.compare import row_differences
 from rexpr.errors import EngineUnavailable, InputProblem, NotPushable, RexprError
 from rexpr.evaluation import Evaluation
 
@@ -53,13 +53,7 @@ def parse_engine_list(text: str | None) -> tuple[str, ...]:
 
 
 def compare(expected: list[object], observed: list[object], limit: int = 1000) -> tuple[Disagreement, ...]:
-    out = []
-    for row, (e, o) in enumerate(zip(expected, observed)):
-        if not same_result(e, o):
-            out.append(Disagreement(row, e, o))
-            if len(out) >= limit:
-                break
-    return tuple(out)
+    return tuple(Disagreement(*diff) for diff in row_differences(expected, observed, limit))
 
 
 def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table, lowering: str) -> tuple[Evaluation, str]:

@@ -14,6 +14,10 @@ EXIT_OK, EXIT_DISAGREE, EXIT_INVALID, EXIT_INTERNAL = 0, 1, 2, 3
 # name -> module; each module has ``add_arguments(parser)`` and ``run(args) -> int``.
 _COMMANDS = {
     "check": "rexpr.cli.check",
+    "compile": "rexpr.cli.compile",
+    "functions": "rexpr.cli.functions",
+    "plan": "rexpr.cli.plan",
+    "diff": "rexpr.cli.diff",
     "demo": "rexpr.cli.demo",
 }
 
@@ -37,10 +41,6 @@ def _version() -> str:
     from rexpr import __version__
 
     return __version__
-
-
-class _Parser(argparse.ArgumentParser):
-    pass
 
 
 def main(argv: list[str] | None = None) -> int:

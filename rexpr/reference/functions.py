@@ -77,6 +77,8 @@ def round_(x, digits: int = 0):
     if _is_int(x):
         if digits >= 0:
             return x
+        if digits < -19:  # |x| < 10**19 / 2, so it rounds to 0
+            return 0
         unit = 10 ** (-digits)
         q, r = divmod(abs(x), unit)
         if 2 * r >= unit:
