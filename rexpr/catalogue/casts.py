@@ -21,7 +21,7 @@ class CastRule:
 _SPACES = "after removing leading and trailing spaces (U+0020 only; ISO/IEC 9075-2 6.13)"
 
 CAST_RULES: tuple[CastRule, ...] = (
-    CastRule(I, F, "Nearest float64 (round to nearest even beyond 2^53; IEEE 754 5.4.2 convertFromInt)."),
+    CastRule(I, F, "Nearest float64 (round to nearest even beyond 2^53; IEEE 754 5.4.1 convertFromInt)."),
     CastRule(F, I, "Round half away from zero to an integer; NaN, ±inf and values outside int64 are errors.",
              (ErrorClass.OUT_OF_RANGE,)),
     CastRule(B, I, "true is 1, false is 0."),

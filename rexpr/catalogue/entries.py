@@ -90,13 +90,14 @@ ENTRIES: tuple[FunctionSpec, ...] = (
         (sig(I, I, result=I, optional=1), sig(F, I, result=F, optional=1)),
         "Round to `digits` decimal places (default 0; negative rounds left of the point), half away "
         "from zero, judged on the exact binary value (round(2.675, 2) = 2.67 because 2.675 is "
-        "stored as 2.67499999...). int64 input stays int64. NaN and ±inf are returned unchanged.",
+        "stored as 2.67499999...). int64 input stays int64. NaN and ±inf are returned unchanged; a "
+        "float64 result too large to represent becomes ±inf (IEEE 754 overflow), as in arithmetic.",
         "decimal.ROUND_HALF_UP on the exact value (Python decimal module); the SQL standard leaves "
         "rounding implementation-defined", PROPAGATES,
         errors=(ErrorRule(E.OUT_OF_RANGE, "an int64 result does not fit"),)),
     FunctionSpec(
         "floor", "floor", Form.CALL, "arithmetic", same((I, F), 1),
-        "Largest integral value not greater than x; int64 input is returned unchanged; floor(-0.5) = -0.0.",
+        "Largest integral value not greater than x; int64 input is returned unchanged; floor(-0.0) = -0.0.",
         f"{SQL} 6.28 <floor function>; {IEEE} 5.9 roundToIntegralTowardNegative", PROPAGATES),
     FunctionSpec(
         "ceil", "ceil", Form.CALL, "arithmetic", same((I, F), 1),

@@ -53,10 +53,13 @@ def corpus_batches(directory: str | None, categories: Sequence[str] = ()) -> lis
         if categories and corpus.category not in categories:
             continue
         cases = []
-        for n, case in enumerate(corpus.cases):
+        for case in corpus.cases:
+            if case.compile_error is not None:  # a checker case: nothing to evaluate
+                continue
             tree = compile_expression(case.expression, corpus.schema).tree
-            cases.append(DiffCase(f"{corpus.category}/{n}", corpus.category, case.expression, tree, case.reason))
-        batches.append(Batch(f"corpus-{corpus.category}", corpus.category, corpus.schema, corpus.table, tuple(cases)))
+            cases.append(DiffCase(f"{corpus.path.stem}/{case.number}", corpus.category, case.expression, tree,
+                                  case.reason, case.expected, case.source or ""))
+        batches.append(Batch(f"corpus-{corpus.path.stem}", corpus.category, corpus.schema, corpus.table, tuple(cases)))
     return batches
 
 

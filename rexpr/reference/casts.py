@@ -15,7 +15,8 @@ from rexpr.values import RowError
 
 _INT_TEXT = re.compile(r"[+-]?[0-9]+")
 _FLOAT_TEXT = re.compile(r"[+-]?(?:(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?|inf|infinity|nan)",
-                         re.IGNORECASE)
+                         re.IGNORECASE | re.ASCII)  # ASCII: 'ınf' (dotless i) is not 'inf'
+_MAX_INT64_DIGITS = 19
 
 
 def _strip_spaces(text: str) -> str:
@@ -45,7 +46,10 @@ def string_to_int(text: str) -> int | RowError:
     body = _strip_spaces(text)
     if not _INT_TEXT.fullmatch(body):
         return RowError(ErrorClass.INVALID_CAST, f"{text!r} is not an integer")
-    result = int(body)
+    digits = body.lstrip("+-").lstrip("0") or "0"
+    if len(digits) > _MAX_INT64_DIGITS:  # also keeps int() away from its 4300-digit limit
+        return _out_of_range(f"{text[:40]!r}... does not fit in int64")
+    result = -int(digits) if body.startswith("-") else int(digits)
     if not INT64_MIN <= result <= INT64_MAX:
         return _out_of_range(f"{text!r} does not fit in int64")
     return result

@@ -1,0 +1,1 @@
+"""The demo: an invented harbour-logistics scenario used to show planning and checking."""
