@@ -7,6 +7,7 @@ from typing import Sequence
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from rexpr.catalogue.model import ErrorClass
 from rexpr.errors import EvaluationFailed
@@ -57,7 +58,8 @@ class Evaluation:
         if codes is None or not codes.any():
             return cls(data_type, values, {})
         rows = np.flatnonzero(codes)
-        errors = {int(r): RowError(ERROR_CODES[int(codes[r])]) for r in rows}  # type: ignore[arg-type]
+        shared = {code: RowError(ERROR_CODES[code]) for code in np.unique(codes[rows]).tolist()}  # type: ignore[arg-type]
+        errors = dict(zip(rows.tolist(), (shared[c] for c in codes[rows].tolist())))
         mask = pa.array(codes != 0)
-        cleaned = pa.compute.if_else(mask, pa.scalar(None, type=values.type), values)
+        cleaned = pc.if_else(mask, pa.scalar(None, type=values.type), values)
         return cls(data_type, cleaned, errors)
