@@ -85,7 +85,11 @@ class _Builder(Transformer):
 
     # literals
     def int_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("int", int(tok), _token_span(tok), str(tok)))
+        digits = str(tok).lstrip("0") or "0"
+        if len(digits) > 20:  # far beyond int64; also keeps int() under its digit limit
+            raise SyntaxProblem(f"integer literal with {len(digits)} digits does not fit in int64",
+                                code="invalid_literal", span=_token_span(tok))
+        return self._made(n.Literal("int", int(digits), _token_span(tok), str(tok)))
 
     def float_literal(self, tok: Token) -> n.Node:
         return self._made(n.Literal("float", float(tok), _token_span(tok), str(tok)))
