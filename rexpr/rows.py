@@ -62,7 +62,9 @@ def conform(table: pa.Table, schema: Schema) -> pa.Table:
 def rows_from_json_lines(text: str, schema: Schema) -> pa.Table:
     """One JSON object per line; floats may be "NaN", "Infinity" or "-Infinity" (or bare NaN)."""
     records: list[dict] = []
-    for number, line in enumerate(text.splitlines(), 1):
+    # Split on newlines only: str.splitlines would also split inside strings at U+2028 and friends.
+    for number, line in enumerate(text.split("\n"), 1):
+        line = line.removesuffix("\r")
         if not line.strip():
             continue
         try:

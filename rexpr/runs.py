@@ -63,9 +63,16 @@ def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table, lo
         from rexpr.engines.base import SqlItem
     except ImportError as exc:  # pragma: no cover - only while a part is not installed
         raise EngineUnavailable(f"SQL support is not available: {exc}") from None
-    expression = lower(compiled.tree, engine, lowering)  # type: ignore[arg-type]
-    sql = to_sql(compiled.tree, engine, lowering)  # type: ignore[arg-type]
-    runner = get_engine(engine)
+    try:
+        expression = lower(compiled.tree, engine, lowering)  # type: ignore[arg-type]
+        sql = to_sql(compiled.tree, engine, lowering)  # type: ignore[arg-type]
+        runner = get_engine(engine)
+    except ImportError as exc:
+        raise EngineUnavailable(f"{engine} support is not installed: {exc}") from None
+    except InputProblem as exc:
+        if exc.code == "unknown_engine":
+            raise EngineUnavailable(exc.message) from None
+        raise
     status = runner.availability()
     if not status.available:
         raise EngineUnavailable(status.reason)

@@ -59,7 +59,7 @@ class Schema:
     @classmethod
     def from_json(cls, data: Any) -> "Schema":
         """``{"fields": {"name": "string", ...}}`` or the bare mapping."""
-        if isinstance(data, dict) and isinstance(data.get("fields"), dict):
+        if isinstance(data, dict) and set(data) == {"fields"} and isinstance(data["fields"], dict):
             data = data["fields"]
         if not isinstance(data, dict):
             raise SchemaProblem('a JSON schema is an object mapping field name to type, e.g. '

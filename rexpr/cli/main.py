@@ -18,6 +18,7 @@ _COMMANDS = {
     "functions": "rexpr.cli.functions",
     "plan": "rexpr.cli.plan",
     "diff": "rexpr.cli.diff",
+    "serve": "service.cli",
     "demo": "rexpr.cli.demo",
 }
 
