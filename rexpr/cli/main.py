@@ -30,12 +30,26 @@ def _build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"rexpr {_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, module_name in _COMMANDS.items():
-        module = importlib.import_module(module_name)
+        try:
+            module = importlib.import_module(module_name)
+        except ImportError as exc:  # an optional part (e.g. the service extra) is not installed
+            command = sub.add_parser(name, help=f"(unavailable: {exc.name} is not installed)")
+            command.set_defaults(run=_missing(name, exc))
+            continue
         command = sub.add_parser(name, help=module.__doc__.splitlines()[0] if module.__doc__ else None,
                                  description=module.__doc__)
         module.add_arguments(command)
         command.set_defaults(run=module.run)
     return parser
+
+
+def _missing(name: str, exc: ImportError) -> Callable[[argparse.Namespace], int]:
+    def run(args: argparse.Namespace) -> int:
+        print(f"rexpr {name} needs {exc.name}, which is not installed; install the extra: "
+              f"pip install -e '.[service]'", file=sys.stderr)
+        return EXIT_INVALID
+
+    return run
 
 
 def _version() -> str:
