@@ -11,6 +11,7 @@ from typing import Callable, Literal, Protocol
 
 from sqlglot import exp
 
+from rexpr.sql.quoting import Quoting
 from rexpr.typed import TCall, Typed
 
 Lowering = Literal["faithful", "native"]
@@ -43,6 +44,20 @@ class Capability:
 
 
 @dataclass(frozen=True)
+class Divergence:
+    """A measured case where the native lowering disagrees with the reference on this engine.
+
+    ``fields`` and ``rows`` give a small input (dotted field name, type spelling; one tuple of
+    values per row); tests run the native SQL on the real engine and check it really differs."""
+
+    function: str                             # catalogue id
+    expression: str                           # rexpr text
+    what: str                                 # one line: what the native SQL gets wrong
+    fields: tuple[tuple[str, str], ...] = ()
+    rows: tuple[tuple[object, ...], ...] = ((),)
+
+
+@dataclass(frozen=True)
 class DialectProfile:
     name: str                           # engine name: duckdb, sqlite, postgres, mariadb
     sqlglot_dialect: str                # sqlglot dialect used to print the trees
@@ -52,3 +67,7 @@ class DialectProfile:
     capabilities: dict[str, Capability]  # function id -> capability under the faithful lowering
     literal: Callable[[object, "object"], exp.Expression] | None = None  # (value, DataType) -> literal tree
     notes: tuple[str, ...] = field(default=())
+    # How identifiers and string literals are spelled (rexpr.sql.quoting); None: the default
+    # for the sqlglot dialect (double-quoted identifiers, NUL refused).
+    quoting: Quoting | None = None
+    divergences: tuple[Divergence, ...] = field(default=())
