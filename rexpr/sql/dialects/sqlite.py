@@ -137,7 +137,8 @@ def _has_nul(s: Tree) -> Tree:
 def _nan_guard(node: TCall, args: list[Tree], value: Tree, checks: list[tuple[Tree, ErrorClass]]) -> Tree:
     """A float result that SQLite turns into NULL (IEEE NaN) raises the engine-limit tag."""
     # Non-null operands give NULL only for NaN; coalesce evaluates the raise only then.
-    return em.guarded(ENGINE, node, args, checks, t.call("coalesce", value, limit("nan")))
+    # The coalesce would also fire for a null operand, so null operands are tested first.
+    return em.guarded(ENGINE, node, args, checks, t.call("coalesce", value, limit("nan")), nulls_first=True)
 
 
 # ---------------------------------------------------------------------------------- arithmetic
