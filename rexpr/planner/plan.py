@@ -6,6 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Sequence
 
+from rexpr.catalogue import BY_ID
 from rexpr.api import SchemaLike, compile as compile_expression
 from rexpr.errors import InputProblem, NotPushable
 from rexpr.folding import fold_constants
@@ -81,6 +82,27 @@ def _and_of(items: Sequence[Typed]) -> Typed | None:
     return TCall("and", tuple(items), BOOL.with_nullable(nullable), span)
 
 
+_WIDEN_WHY = ("the residual may raise, and null and <error> is an error, so the source keeps rows where "
+              "this is null and the residual checks it again")
+
+
+def _widen(decision: Conjunct, source: str) -> Conjunct:
+    """Semantics: null and <error> is an error. If the source dropped the rows where a pushed
+    conjunct is null, a local error on those rows would vanish; so the source runs the conjunct
+    widened to "is not false" and the residual evaluates it again."""
+    if source == DATASET_SOURCE:
+        return Conjunct(decision.text, False, f"kept local: {_WIDEN_WHY} (not expressible as a dataset filter)",
+                        decision.tree)
+    return Conjunct(decision.text, True, f"{decision.reason}, widened to 'is not false': {_WIDEN_WHY}",
+                    decision.tree, decision.sql)
+
+
+def _not_false(node: Typed) -> Typed:
+    """``coalesce(node, true)``: true unless ``node`` is false (never null)."""
+    return TCall("coalesce", (node, TLiteral(True, BOOL.with_nullable(False), node.span)),
+                 BOOL.with_nullable(False), node.span)
+
+
 def _check_source(source: str) -> None:
     if source not in SOURCES:
         import difflib
@@ -113,8 +135,14 @@ def _try_push(conjunct: Typed, source: str, evidence: Evidence, alone: bool) -> 
         if expression is None:
             return False, "no Arrow dataset filter computes this exactly as the semantics says", None
         return True, "Arrow dataset filter with the same semantics", str(expression)
-    from rexpr.sql.lowering import to_sql
+    from rexpr.sql.lowering import dialect_of, to_sql
 
+    data_dependent = dialect_of(source).data_dependent
+    if data_dependent is not None:
+        for node in walk(conjunct):
+            why = data_dependent(node) if isinstance(node, TCall) else None
+            if why:
+                return False, f"{BY_ID[node.function].spelling} on {source}: {why}", None
     try:
         sql = to_sql(conjunct, source, "faithful")
     except NotPushable as exc:
@@ -137,8 +165,12 @@ def plan(expression: str, schema: SchemaLike, source: str, columns: Sequence[str
     for part in parts:
         pushed, reason, sql = _try_push(part, source, evidence, alone=len(parts) == 1)
         decisions.append(Conjunct(to_text(part), pushed, reason, part, sql))
-    pushed_parts = [d.tree for d in decisions if d.pushed]
-    kept = [d.tree for d in decisions if not d.pushed]
+    widen = any(raise_reason(d.tree) for d in decisions if not d.pushed)
+    if widen:
+        decisions = [_widen(d, source) if d.pushed and d.tree.type.nullable else d for d in decisions]
+    widened = [widen and d.pushed and d.tree.type.nullable for d in decisions]
+    pushed_parts = [_not_false(d.tree) if w else d.tree for d, w in zip(decisions, widened) if d.pushed]
+    kept = [d.tree for d, w in zip(decisions, widened) if not d.pushed or w]
     pushed_tree = _and_of(pushed_parts)
     residual = _and_of(kept)
     if isinstance(residual, TLiteral) and residual.value is True:

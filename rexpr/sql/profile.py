@@ -71,3 +71,6 @@ class DialectProfile:
     # for the sqlglot dialect (double-quoted identifiers, NUL refused).
     quoting: Quoting | None = None
     divergences: tuple[Divergence, ...] = field(default=())
+    # For the planner: why this call's faithful SQL holds only for some data values (which no
+    # typed tree can prove), or None. Such calls are never pushed into a filter.
+    data_dependent: Callable[[TCall], str | None] | None = None

@@ -56,7 +56,7 @@ from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.functions import like_regex
 from rexpr.sql.dialects import _case_mapping as cm, _logic, _numeral_text as nt, _trees as t
-from rexpr.sql.dialects._pg_numbers import EXP_OVERFLOW_AFTER
+from rexpr.sql.dialects._binary64 import EXP_OVERFLOW_AFTER, LN_OVERFLOW
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.typed import TCall, TLiteral, Typed
 from rexpr.types import INT64_MAX, INT64_MIN, DataType, Kind
@@ -372,13 +372,23 @@ def _guard_below(fn: str, strict: bool) -> Lowerer:
     return bound(body)
 
 
+def _power_overflows(x: Tree, y: Tree) -> Tree:
+    # y * ln|x| beyond ln(DBL_MAX) plus a margin far above ln's rounding error, compared as y
+    # against limit / ln|x| so that nothing here can overflow (LN(0) is NULL: no overflow)
+    ln = t.call("LN", t.call("ABS", x))
+    limit = t.div(_double(LN_OVERFLOW + 1e-4), ln)
+    return t.case((t.gt(ln, _double(0.0)), t.gt(y, limit)), (t.lt(ln, _double(0.0)), t.lt(y, limit)),
+                  default=t.boolean(False))
+
+
 def _power(node: TCall, x: Tree, y: Tree) -> Tree:
     invalid = raise_(ErrorClass.INVALID_ARGUMENT, F)
+    native = _overflow_checked(node, [x, y], t.call("POW", x, y), _power_overflows)
     return t.case((_nulls(x, y), typed_null(F)),
                   (t.or_(t.eq(y, _double(0.0)), t.eq(x, _double(1.0))), _double(1.0)),
                   (t.and_(t.eq(x, _double(0.0)), t.lt(y, _double(0.0))), invalid),
                   (t.and_(t.lt(x, _double(0.0)), t.ne(y, t.call("FLOOR", y))), invalid),
-                  default=t.call("POW", x, y))
+                  default=native)
 
 
 # ---------------------------------------------------------------------------------- strings
@@ -452,26 +462,37 @@ def _replace_all(s: Tree, pairs: tuple[tuple[str, str], ...]) -> Tree:
     return s
 
 
-_SENTINEL = "\U0010ffff\U0010fffe"  # two noncharacters: where the appended dictionary starts
+_SENTINEL = "\U0010ffff"  # a noncharacter: where the appended dictionary starts
 
 
 def _expand_specials(s: Tree, pairs: tuple[tuple[str, str], ...]) -> Tree:
     """Replace each character of ``pairs`` by its expansion in one REGEXP_REPLACE (a chain of
     100 nested REPLACE calls is deeper than SQL tooling reads back): a dictionary
-    '|<char><expansion>|...' is appended after a sentinel, each special character looks its
-    expansion up with a lookahead (.* is greedy, so the last sentinel, the appended one, is
-    used whatever the text holds), and the dictionary is cut off again by length. Nothing in
-    the dictionary is replaced, for no sentinel follows it."""
+    '|<char><expansion>|...' is appended after a sentinel, each special character finds its
+    expansion with a lookahead, and the dictionary is cut off again by length. Nothing in the
+    dictionary is replaced, for no sentinel follows it. The lookahead skips to the first
+    sentinel (fast); text that holds the sentinel itself takes a greedy lookahead instead,
+    which finds the last one, the appended one."""
     dictionary = _SENTINEL + "".join(f"|{c}{expansion}" for c, expansion in pairs)
     keys = "[" + "".join(f"\\x{{{ord(c):X}}}" for c, _ in pairs) + "]"
-    pattern = f"(?s)({keys})(?=.*{_SENTINEL}.*?\\|\\1([^|]*))"
-    replaced = t.call("REGEXP_REPLACE", _text(t.call("CONCAT", s, t.string(dictionary)), BINARY_TEXT),
-                      t.string(pattern), t.string("\\2"))
+    fast = f"(?s)({keys})(?=[^{_SENTINEL}]*{_SENTINEL}(?:[^|]*\\|)*?\\1([^|]*))"
+    robust = f"(?s)({keys})(?=.*{_SENTINEL}.*?\\|\\1([^|]*))"
 
     def cut(refs: list[Tree]) -> Tree:
         [r] = refs
         return t.call("LEFT", r, t.sub(t.call("CHAR_LENGTH", r), t.number(len(dictionary))))
-    return bind([replaced], cut, [S])
+
+    def replaced(text: Tree, pattern: str) -> Tree:
+        joined = _text(t.call("CONCAT", text, t.string(dictionary)), BINARY_TEXT)
+        return bind([t.call("REGEXP_REPLACE", joined, t.string(pattern), t.string("\\2"))], cut, [S])
+
+    def body(refs: list[Tree]) -> Tree:
+        [text] = refs
+        # the lookup costs a regular expression over the dictionary: only for text that needs it
+        has_key = t.gt(t.call("REGEXP_INSTR", _text(text, BINARY_TEXT), t.string(keys)), t.number(0))
+        has_sentinel = t.gt(t.call("LOCATE", _text(t.string(_SENTINEL), BINARY_TEXT), text), t.number(0))
+        return t.case((t.not_(has_key), text), (has_sentinel, replaced(text, robust)), default=replaced(text, fast))
+    return bind([s], body, [S])
 
 
 def _upper(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
@@ -868,13 +889,18 @@ NATIVE: dict[str, Lowerer] = {
 
 _FINITE = ("float64 values must stay finite: DOUBLE has no NaN or ±inf, so a result that would "
            "be one raises out_of_range instead")
+_FINITE_IDS = frozenset(("add", "subtract", "multiply", "divide", "power", "exp"))
 _CONDITIONAL = {
-    **{fid: _FINITE for fid in ("add", "subtract", "multiply", "divide", "power", "exp")},
+    **{fid: _FINITE for fid in _FINITE_IDS},
     "round": "float64 only without digits (or digits a literal 0): ROUND is not exact on the binary "
              "value; int64 always",
     "cast": "string -> float64 raises out_of_range for 'inf' and 'nan' (DOUBLE cannot hold them); "
             "float64 -> string of a -0.0 that reached a column reads '0.0' (DOUBLE stores 0.0)",
     "is_nan": "always false for stored values (DOUBLE stores NaN as NULL)",
+    "upper": "needs the utf8mb4_uca1400_as_cs collation (MariaDB 10.10 or later); characters assigned "
+             "after Python's Unicode version may map differently",
+    "lower": "needs the utf8mb4_uca1400_as_cs collation (MariaDB 10.10 or later); characters assigned "
+             "after Python's Unicode version may map differently",
     "and": "faithful when at most one operand can raise an error",
     "or": "faithful when at most one operand can raise an error",
     "in": "faithful when at most one list item can raise an error",
@@ -945,4 +971,5 @@ PROFILE = DialectProfile(
         "No NaN, ±inf or -0.0 in DOUBLE: see the conditional capabilities.",
     ),
     divergences=DIVERGENCES,
+    data_dependent=lambda node: _FINITE if node.function in _FINITE_IDS and node.type.kind is F else None,
 )
