@@ -15,7 +15,6 @@ from rexpr.api import CompiledExpression
 from rexpr.backends import LOCAL_BACKENDS
 from rexpr.compare import row_differences
 from rexpr.errors import EngineUnavailable, InputProblem, NotPushable, RexprError
-from rexpr.evaluation import Evaluation
 
 SQL_ENGINES = ("duckdb", "sqlite", "postgres", "mariadb")
 ALL_ENGINES = LOCAL_BACKENDS + SQL_ENGINES
@@ -56,7 +55,8 @@ def compare(expected: list[object], observed: list[object], limit: int = 1000) -
     return tuple(Disagreement(*diff) for diff in row_differences(expected, observed, limit))
 
 
-def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table, lowering: str) -> tuple[Evaluation, str]:
+def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table,
+                  lowering: str) -> tuple[list[object], dict[int, str], str]:
     try:
         from rexpr.sql.lowering import lower, to_sql
         from rexpr.engines import get_engine
@@ -80,18 +80,20 @@ def _evaluate_sql(engine: str, compiled: CompiledExpression, table: pa.Table, lo
         [result] = runner.evaluate(table, [SqlItem("value", expression, compiled.type)])
     finally:
         runner.close()
-    return result.evaluation, sql
+    # to_pylist keeps type mismatches visible; input losses are rows the engine stored altered.
+    return result.to_pylist(), result.input_losses, sql
 
 
 def run_on(engine: str, compiled: CompiledExpression, table: pa.Table, expected: list[object],
            lowering: str = "faithful") -> EngineRun:
     """Evaluate on one engine; an engine that cannot run says so instead of failing the others."""
     sql = None
+    losses: dict[int, str] = {}
     try:
         if engine in LOCAL_BACKENDS:
-            evaluation = compiled.evaluate(table, backend=engine)
+            observed = compiled.evaluate(table, backend=engine).to_pylist()
         else:
-            evaluation, sql = _evaluate_sql(engine, compiled, table, lowering)
+            observed, losses, sql = _evaluate_sql(engine, compiled, table, lowering)
     except NotPushable as exc:
         return EngineRun(engine, "not_pushable", reason=exc.message)
     except EngineUnavailable as exc:
@@ -100,7 +102,8 @@ def run_on(engine: str, compiled: CompiledExpression, table: pa.Table, expected:
         if exc.code in ("engine_unavailable",):
             return EngineRun(engine, "unavailable", reason=exc.message, sql=sql)
         raise
-    observed = evaluation.to_pylist()
-    problems = compare(expected, observed)
-    return EngineRun(engine, "disagree" if problems else "agree", len(observed), problems, sql=sql,
+    problems = tuple(d for d in compare(expected, observed) if d.row not in losses)
+    reason = (f"{len(losses)} row(s) not compared: {engine} cannot store their input exactly "
+              f"(e.g. {next(iter(losses.values()))})") if losses else ""
+    return EngineRun(engine, "disagree" if problems else "agree", len(observed), problems, reason=reason, sql=sql,
                      values=tuple(observed))
