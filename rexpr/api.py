@@ -60,14 +60,14 @@ class CompiledExpression:
         """The expression printed back from the typed tree (implicit casts made explicit)."""
         return to_text(self.tree)
 
-    def evaluate(self, table: pa.Table | pa.RecordBatch, backend: str = "arrow") -> Evaluation:
+    def evaluate(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> Evaluation:
         """Values for every row, with per-row errors (see :class:`Evaluation`)."""
         run = self._prepared.get(backend)
         if run is None:
             run = self._prepared[backend] = get_backend(backend)(self.tree)
         return run(_as_table(table))
 
-    def mask(self, table: pa.Table | pa.RecordBatch, backend: str = "arrow") -> pa.BooleanArray:
+    def mask(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> pa.BooleanArray:
         """True where the predicate is true; null and false rows are both dropped by a filter.
         Raises :class:`~rexpr.errors.EvaluationFailed` if any row errors: an error beats a guess."""
         if not self.is_predicate:
@@ -77,7 +77,7 @@ class CompiledExpression:
         result.raise_for_errors()
         return pc.fill_null(result.values, False)
 
-    def filter(self, table: pa.Table | pa.RecordBatch, backend: str = "arrow") -> pa.Table:
+    def filter(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> pa.Table:
         """The rows where the predicate is true."""
         table = _as_table(table)
         return table.filter(self.mask(table, backend))

@@ -22,6 +22,7 @@ _MODULES = {
     "reference": "rexpr.backends.reference",
     "arrow": "rexpr.backends.arrow",
     "numpy": "rexpr.backends.numpy",
+    "auto": "rexpr.backends.auto",
 }
 
 LOCAL_BACKENDS = tuple(_MODULES)

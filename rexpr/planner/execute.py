@@ -54,7 +54,7 @@ def _apply_residual(plan: Plan, table: pa.Table, schema: Schema) -> pa.Table:
     if plan.residual_tree is None:
         return table
     compiled = CompiledExpression(plan.residual or "", schema, plan.residual_tree)
-    return compiled.filter(table, backend="arrow")
+    return compiled.filter(table, backend="auto")
 
 
 def _columns_of(plan: Plan, requested: list[str] | None) -> list[str]:
