@@ -13,6 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
+import sqlglot
 from sqlglot import exp
 
 from rexpr.errors import NotPushable
@@ -43,10 +44,23 @@ def column(name: str) -> exp.Column:
     return exp.Column(this=identifier(name))
 
 
+def _checked(text: str, quoting: Quoting) -> exp.Literal:
+    """A string literal that reads back, in its dialect, as exactly ``text``."""
+    literal = exp.Literal.string(text)
+    printed = literal.sql(dialect=quoting.dialect)
+    try:
+        back = sqlglot.parse_one(printed, read=quoting.dialect)
+    except sqlglot.errors.ParseError:
+        back = None
+    if not (isinstance(back, exp.Literal) and back.is_string and back.this == text):
+        raise NotPushable(f"{quoting.dialect}: the string {text[:40]!r} does not print as a literal of itself")
+    return literal
+
+
 def string_literal(text: str, quoting: Quoting) -> exp.Expression:
     """``text`` as a literal; NUL characters become ``char_function(0)`` joined to the rest."""
     if not any(ch in UNSAYABLE for ch in text):
-        return exp.Literal.string(text)
+        return _checked(text, quoting)
     if quoting.char_function is None:
         raise NotPushable(f"{quoting.dialect} text cannot contain U+0000 (NUL)")
     pieces: list[exp.Expression] = []
@@ -54,13 +68,13 @@ def string_literal(text: str, quoting: Quoting) -> exp.Expression:
     for ch in text:
         if ch in UNSAYABLE:
             if current:
-                pieces.append(exp.Literal.string("".join(current)))
+                pieces.append(_checked("".join(current), quoting))
                 current = []
             pieces.append(exp.Anonymous(this=quoting.char_function, expressions=[exp.Literal.number(ord(ch))]))
         else:
             current.append(ch)
     if current:
-        pieces.append(exp.Literal.string("".join(current)))
+        pieces.append(_checked("".join(current), quoting))
     if len(pieces) == 1:
         return pieces[0]
     if quoting.join == "concat":

@@ -237,7 +237,7 @@ def round_int(ctx: LowerContext, engine: Engine, node: TCall, args: list[Tree]) 
     if not is_literal:
         ctx.refuse(node, "digits must be a literal")
     if digits is None:
-        return guarded(engine, node, args, [], engine.null(I))
+        return null_after(engine, args)
     assert isinstance(digits, int)
     if digits >= 0:
         return x
@@ -271,14 +271,14 @@ def substring(engine: Engine, node: TCall, args: list[Tree], substr: Callable[..
     one = lit(1)
     s, start = args[0], args[1]
     if len(args) == 2:
-        value = t.case((t.ge(start, one), substr(s, start)), default=s)
-        return guarded(engine, node, args, list(extra_checks), value)
+        value = t.case((t.ge(start, one), substr(s, start)), default=s)  # a null start takes the default
+        return guarded(engine, node, args, list(extra_checks), value, nulls_first=True)
     length = args[2]
     value = t.case((t.ge(start, one), substr(s, start, length)),
                    (t.le(t.add(start, length), one), t.string("")),  # start <= 0, length >= 0: no overflow
                    default=substr(s, one, t.sub(t.add(start, length), one)))
     checks = [*extra_checks, (t.lt(length, lit(0)), ErrorClass.INVALID_ARGUMENT)]
-    return guarded(engine, node, args, checks, value)
+    return guarded(engine, node, args, checks, value, nulls_first=True)
 
 
 def escape_pattern_invalid(pattern: Tree, escape: str) -> Tree:

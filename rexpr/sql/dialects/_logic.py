@@ -131,8 +131,8 @@ def between(ctx: LowerContext, node: TCall, args: list[Tree], sql: ServerSql) ->
                          "other comparison absorb when it is false")
     if not (low_risky or high_risky):
         # an error in x makes both comparisons raise, as in the reference
-        return sql.bind(args, lambda r: t.and_(sql.compare("ge", kind, r[0], r[1]), sql.compare("le", kind, r[0], r[2])),
-                        [kind] * 3)
+        return sql.bind(args, lambda r: t.and_(sql.compare("ge", kind, r[0], r[1]),
+                                               sql.compare("le", kind, r[0], r[2])), [kind] * 3)
     op_safe, op_risky = ("le", "ge") if low_risky else ("ge", "le")
     bound_safe, risky_arg = (args[2], args[1]) if low_risky else (args[1], args[2])
 

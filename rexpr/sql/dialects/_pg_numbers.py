@@ -20,43 +20,20 @@ Arguments are trees that are cheap to repeat (bound values)."""
 from __future__ import annotations
 
 import math
+from decimal import Decimal
 from typing import Callable
 
 from sqlglot import exp as sx
 
 from rexpr.sql.dialects import _trees as t
+from rexpr.sql.dialects._binary64 import DBL_MAX, EXP_OVERFLOW_AFTER, EXP_ZERO_UPTO, OVERFLOW_LIMIT, UNDERFLOW_SCALE
 
 Tree = t.Tree
-Bind = Callable[[list[Tree], Callable[[list[Tree]], Tree]], Tree]
+Bind = Callable[..., Tree]
 D = "postgres"
 
-DBL_MAX = 1.7976931348623157e308
 TWO_63 = 2.0**63
-OVERFLOW_LIMIT = 2**1024 - 2**970  # least real value that rounds to +inf (IEEE 754-2019 4.3.1)
-UNDERFLOW_SCALE = 2**1075          # |v| * 2^1075 <= 1 means v rounds to zero (tie to even)
 
-
-def _exp_limits() -> tuple[float, float]:
-    """Largest x with a finite exp(x), and largest x with exp(x) == 0, by bisection over
-    doubles with the C library's exp (the one PostgreSQL calls on the same platform)."""
-    def largest(ok: Callable[[float], bool], lo: float, hi: float) -> float:
-        while True:
-            mid = (lo + hi) / 2
-            if mid in (lo, hi):
-                return lo
-            lo, hi = (mid, hi) if ok(mid) else (lo, mid)
-
-    def finite(x: float) -> bool:
-        try:
-            math.exp(x)
-            return True
-        except OverflowError:
-            return False
-
-    return largest(finite, 709.0, 710.0), largest(lambda x: math.exp(x) == 0.0, -800.0, -700.0)
-
-
-EXP_OVERFLOW_AFTER, EXP_ZERO_UPTO = _exp_limits()
 
 # ln-space bands: outside them the cheap test is decisive with a margin far above the
 # rounding error of ln (|error| < 1e-12 at these magnitudes).
@@ -224,7 +201,7 @@ def power(x: Tree, y: Tree, invalid: Tree, bind: Bind) -> Tree:
         # (0.25^537.5 = 2^-1075) can come out a hair above: treat [2^-1075, 2^-1075 (1 + 2^-40)]
         # as zero. The true result there is 0 or the least subnormal, one unit in the last place
         # apart, within the documented tolerance of power (rexpr.compare, rule 5).
-        under = t.le(t.mul(exact_power(), numeric(UNDERFLOW_SCALE)), numeric("1.0000000000009094947017729282379150390625"))
+        under = t.le(t.mul(exact_power(), numeric(UNDERFLOW_SCALE)), numeric(str(Decimal(1 + 2.0**-40))))
         return t.case(
             (beyond(LN_OVER_SURE, True), signed(negative, math.inf)),
             (beyond(LN_OVER_BAND, True), t.case((over, signed(negative, math.inf)), default=native)),

@@ -164,6 +164,3 @@ def is_simple(node: Tree) -> bool:
     return isinstance(node, (exp.Column, exp.Literal, exp.Null, exp.Boolean))
 
 
-def size(node: Tree) -> int:
-    """Number of nodes in a tree (a bound on how large guarded SQL may grow)."""
-    return sum(1 for _ in node.walk())

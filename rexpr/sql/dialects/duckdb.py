@@ -551,7 +551,7 @@ DIVERGENCES: tuple[Divergence, ...] = (
                (("1e3",), ("0x10",), ("1.5",))),
     Divergence("cast", "cast(s as float64)", "a numeral too large for float64 becomes inf instead of an error", _S,
                (("1e400",),)),
-    Divergence("cast", "cast(s as bool)", "'t', 'yes' and '1' are accepted as true", _S, (("t",), ("yes",))),
+    Divergence("cast", "cast(s as bool)", "'t', 'yes' and '1' are accepted as true", _S, (("t",), ("yes",), ("1",))),
     Divergence("cast", "cast(s = 'a' as string)", "a bool prints as 'true', not 'TRUE'", _S, (("a",),)),
     Divergence("cast", "cast(x as string)", "NaN and infinity print as 'nan' and 'inf'", _X, ((math.nan,), (math.inf,))),
     Divergence("cast", "cast(s as date)", "'2024-5-1' and a timestamp text are accepted as dates", _S,

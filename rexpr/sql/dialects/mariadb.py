@@ -34,12 +34,17 @@ What the faithful lowering works around, each measured on the server (10.11.19, 
 * ``CONCAT(NULL, <error>)`` is NULL without evaluating the second argument, where the
   reference raises (errors before nulls); when a later argument can raise, every argument is
   evaluated first.
-* There is no way to bind a subexpression once (derived tables cannot see outer columns),
-  so guarded SQL repeats arguments; a lowering that would exceed MAX_NODES is refused.
+* A derived table cannot see the outer row (no LATERAL), so a value used several times is
+  bound once through a correlated ``JSON_TABLE(JSON_ARRAY(...))``, which can.
+* The optimizer may evaluate constant subexpressions before the rows; constant subtrees are
+  lowered to their value, computed by the reference (or to the raise construct).
 
 Errors are raised with ``(RAND() >= 0) + ('rexpr:<class>' <> '') + 9223372036854775807``:
 BIGINT overflow raises 1690 even in a SELECT, and the message quotes the expression, tag
-included. RAND() keeps the optimizer from evaluating it ahead of the rows.
+included. RAND() keeps the optimizer from evaluating it ahead of the rows. Because a native
+1690 quotes its whole expression too, an overflowing operation whose operands contain a tag
+(a guard, or a user literal or column name with 'rexpr:' in it) decides its overflow itself
+and raises its own out_of_range, so the message cannot carry a foreign tag.
 """
 
 from __future__ import annotations
@@ -56,7 +61,7 @@ from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.functions import like_regex
 from rexpr.sql.dialects import _case_mapping as cm, _logic, _numeral_text as nt, _trees as t
-from rexpr.sql.dialects._binary64 import EXP_OVERFLOW_AFTER, LN_OVERFLOW
+
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.typed import TCall, TLiteral, Typed
 from rexpr.types import INT64_MAX, INT64_MIN, DataType, Kind
@@ -69,7 +74,6 @@ CAST_TYPES = {B: "SIGNED", I: "SIGNED", F: "DOUBLE", S: "CHAR", DATE: "DATE", TS
 NO_PAD = exp.Var(this="utf8mb4_nopad_bin")          # code point order, trailing spaces count
 BINARY_TEXT = exp.Var(this="utf8mb4_bin")           # code point matching for LIKE, LOCATE, regexps
 UNICODE_CASE = exp.Var(this="utf8mb4_uca1400_as_cs")  # Unicode 14 simple case mappings
-MAX_NODES = 200_000
 
 
 def typed_null(kind: Kind) -> Tree:
@@ -86,7 +90,8 @@ _JSON_COLUMN = {B: "BIGINT", I: "BIGINT", F: "DOUBLE", S: "LONGTEXT", DATE: "DAT
                 "decimal": "DECIMAL(65, 0)"}
 
 
-def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | None = None) -> Tree:
+def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | None = None,
+         always: bool = False) -> Tree:
     """``body`` over the values, each evaluated once.
 
     A derived table cannot see the outer row here, but JSON_TABLE can: the values travel as
@@ -94,8 +99,8 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | N
     with round-trip digits, text is escaped losslessly, checked by the tests). JSON_TABLE
     text is utf8mb4_general_ci, so text comes back through CAST(... AS CHAR), which takes
     the connection's utf8mb4_bin like the input columns. Without ``kinds`` the body repeats
-    the values."""
-    if kinds is None or all(t.is_simple(v) for v in values):
+    the values; values cheap to repeat stay inline unless ``always``."""
+    if kinds is None or (not always and all(t.is_simple(v) for v in values)):
         return body(values)
     printed = "\x1f".join(v.sql(dialect=D) for v in values)
     alias = "rx_" + hashlib.sha1(printed.encode("utf-8")).hexdigest()[:12]
@@ -103,11 +108,12 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | N
     array: list[Tree] = []
     columns: list[exp.Expression] = []
     for i, (value, kind) in enumerate(zip(values, kinds)):
-        if t.is_simple(value):
+        if t.is_simple(value) and not always:
             refs.append(value)
             continue
         name = f"v{i}"
-        columns.append(exp.JSONColumnDef(this=exp.to_identifier(name), kind=exp.DataType.build(_JSON_COLUMN[kind], dialect=D),
+        column_type = exp.DataType.build(_JSON_COLUMN[kind], dialect=D)
+        columns.append(exp.JSONColumnDef(this=exp.to_identifier(name), kind=column_type,
                                          path=t.string(f"$[{len(array)}]")))
         array.append(value)
         ref = exp.column(name, table=alias)
@@ -119,8 +125,10 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | N
 
 
 def bound(body: Callable[..., Tree]) -> Lowerer:
-    """A lowerer whose body sees every argument evaluated once."""
-    return lambda ctx, node, args: bind(args, lambda refs: body(node, *refs), [a.type.kind for a in node.args])
+    """A lowerer whose body sees every argument evaluated once (all of them bound when one
+    quotes a tag, so that no native error message can quote it; see _tag_free)."""
+    return lambda ctx, node, args: bind(args, lambda refs: body(node, *refs), [a.type.kind for a in node.args],
+                                        always=quotes_a_tag(args))
 
 
 def _int(value: int) -> Tree:
@@ -219,11 +227,9 @@ SQL = _logic.ServerSql(D, raise_, bind, compare, call_may_raise, evaluate_all)
 
 
 # ---------------------------------------------------------------------------------- numbers
-# A native 1690 message quotes the whole overflowing expression, so when an operand contains a
-# tag (a guard's raise construct, or a user literal or column name with 'rexpr:' in it) the
-# message would carry that tag and be read as the wrong class. Such operations decide their
-# overflow first and raise their own out_of_range instead.
 def quotes_a_tag(trees: list[Tree]) -> bool:
+    """Would a message quoting these trees contain 'rexpr:' (a guard's raise construct, or a
+    user literal or column name with it)?"""
     for tree in trees:
         for node in tree.walk():
             text = node.this if isinstance(node, (exp.Literal, exp.Identifier)) else None
@@ -232,58 +238,17 @@ def quotes_a_tag(trees: list[Tree]) -> bool:
     return False
 
 
-_HALF, _TWO_M512, _TWO_P512 = 0.5, 2.0**-512, 2.0**512
-
-
-def _overflow_checked(node: TCall, args: list[Tree], native: Tree,
-                      overflows: Callable[..., Tree]) -> Tree:
+def _tag_free(node: TCall, args: list[Tree], native: Callable[..., Tree]) -> Tree:
+    """``native(*args)``, whose own overflow raises 1690. That message quotes the expression,
+    so operands that contain a tag are bound first: the message then quotes only the bound
+    columns and is read by its error number, out_of_range."""
     if not quotes_a_tag(args):
-        return native
-    return t.case((overflows(*args), raise_(ErrorClass.OUT_OF_RANGE, node.type.kind)), default=native)
+        return native(*args)
+    return bind(args, lambda refs: native(*refs), [a.type.kind for a in node.args], always=True)
 
 
-def _int_out_of_range(op: Callable[[Tree, Tree], Tree]) -> Callable[[Tree, Tree], Tree]:
-    # exact in DECIMAL(65): a product of two int64 has at most 38 digits
-    def test(a: Tree, b: Tree) -> Tree:
-        exact = op(t.cast(a, "DECIMAL(65, 0)", D), b)
-        return t.or_(t.lt(exact, _int(INT64_MIN)), t.gt(exact, t.number(INT64_MAX)))
-    return test
-
-
-def _sum_overflows(a: Tree, b: Tree) -> Tree:
-    # round((a+b)/2) >= 2^1023 exactly when round(a+b) is infinite (ties to even)
-    half = t.add(t.mul(a, _double(_HALF)), t.mul(b, _double(_HALF)))
-    return t.ge(t.call("ABS", half), _double(2.0**1023))
-
-
-def _product_overflows(a: Tree, b: Tree) -> Tree:
-    # for |a|, |b| > 1 the scalings are exact and the scaled product is 1 exactly at the limit
-    scaled = t.mul(t.mul(t.call("ABS", a), _double(_TWO_M512)), t.mul(t.call("ABS", b), _double(_TWO_M512)))
-    return t.and_(t.gt(t.call("ABS", a), _double(1.0)), t.gt(t.call("ABS", b), _double(1.0)),
-                  t.ge(scaled, _double(1.0)))
-
-
-def _quotient_overflows(a: Tree, b: Tree) -> Tree:
-    ln = t.sub(t.call("LN", t.call("ABS", a)), t.call("LN", t.call("ABS", b)))
-    scaled = t.div(t.mul(t.call("ABS", a), _double(_TWO_M512)), t.mul(t.call("ABS", b), _double(_TWO_P512)))
-    return t.and_(t.ne(a, _double(0.0)), t.or_(t.gt(ln, _double(709.8)),
-                                              t.and_(t.ge(ln, _double(709.7)), t.ge(scaled, _double(1.0)))))
-
-
-def _arith(op: Callable[[Tree, Tree], Tree]) -> Lowerer:
-    def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
-        test = _int_out_of_range(op) if node.type.kind is I else (
-            _product_overflows if op is t.mul else
-            (lambda a, b: _sum_overflows(a, t.neg(b))) if op is t.sub else _sum_overflows)
-        return _overflow_checked(node, args, op(*args), test)
-    return lower
-
-
-def _overflow_checked_pair(a: Tree, b: Tree, native: Tree, overflows: Callable[[Tree, Tree], Tree],
-                           kind: Kind) -> Tree:
-    if not quotes_a_tag([a, b]):
-        return native
-    return t.case((overflows(a, b), raise_(ErrorClass.OUT_OF_RANGE, kind)), default=native)
+def _native_arith(op: Callable[[Tree, Tree], Tree]) -> Lowerer:
+    return lambda ctx, node, args: _tag_free(node, args, op)
 
 
 def _nulls(*values: Tree) -> Tree:
@@ -292,14 +257,15 @@ def _nulls(*values: Tree) -> Tree:
 
 def _zero_guarded(op: Callable[[Tree, Tree], Tree], result: Kind) -> Lowerer:
     """a op b with a zero divisor raised as division_by_zero (MariaDB returns NULL)."""
-    def body(node: TCall, a: Tree, b: Tree) -> Tree:
+    def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
         if _nonzero_literal(node.args[1]):
-            return op(a, b)
+            return _tag_free(node, args, op)
         zero = _double(0.0) if node.args[1].type.kind is F else t.number(0)
-        return t.case((_nulls(a, b), typed_null(result)),
-                      (t.eq(b, zero), raise_(ErrorClass.DIVISION_BY_ZERO, result)),
-                      default=op(a, b))
-    return bound(body)
+        return bind(args, lambda r: t.case((_nulls(*r), typed_null(result)),
+                                           (t.eq(r[1], zero), raise_(ErrorClass.DIVISION_BY_ZERO, result)),
+                                           default=op(*r)),
+                    [a.type.kind for a in node.args], always=quotes_a_tag(args))
+    return lower
 
 
 def _modulo(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
@@ -309,18 +275,14 @@ def _modulo(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
 def _subtract(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     """a - b; BIGINT subtraction misses one overflow (0 - -2^63 gives -2^63, measured)."""
     if node.type.kind is not I:
-        return _arith(t.sub)(ctx, node, args)
-    return bound(lambda n, a, b: t.case(
-        (t.and_(t.eq(b, _int(INT64_MIN)), t.ge(a, t.number(0))), raise_(ErrorClass.OUT_OF_RANGE, I)),
-        default=_overflow_checked(n, [a, b], t.sub(a, b), _int_out_of_range(t.sub))))(ctx, node, args)
+        return _tag_free(node, args, t.sub)
+    return bind(args, lambda r: t.case(
+        (t.and_(t.eq(r[1], _int(INT64_MIN)), t.ge(r[0], t.number(0))), raise_(ErrorClass.OUT_OF_RANGE, I)),
+        default=t.sub(*r)), [I, I], always=quotes_a_tag(args))
 
 
 def _negate(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
-    """-x (BIGINT raises 1690 for -(-2^63)); with a tag in the operand the overflow is decided
-    first, so the message cannot carry the operand's tag."""
-    if node.type.kind is not I:
-        return t.neg(args[0])
-    return bound(lambda n, x: _overflow_checked(n, [x], t.neg(x), lambda v: t.eq(v, _int(INT64_MIN))))(ctx, node, args)
+    return _tag_free(node, args, t.neg)  # BIGINT raises 1690 for -(-2^63)
 
 
 def _truncated(x: Tree) -> Tree:
@@ -372,18 +334,9 @@ def _guard_below(fn: str, strict: bool) -> Lowerer:
     return bound(body)
 
 
-def _power_overflows(x: Tree, y: Tree) -> Tree:
-    # y * ln|x| beyond ln(DBL_MAX) plus a margin far above ln's rounding error, compared as y
-    # against limit / ln|x| so that nothing here can overflow (LN(0) is NULL: no overflow)
-    ln = t.call("LN", t.call("ABS", x))
-    limit = t.div(_double(LN_OVERFLOW + 1e-4), ln)
-    return t.case((t.gt(ln, _double(0.0)), t.gt(y, limit)), (t.lt(ln, _double(0.0)), t.lt(y, limit)),
-                  default=t.boolean(False))
-
-
 def _power(node: TCall, x: Tree, y: Tree) -> Tree:
     invalid = raise_(ErrorClass.INVALID_ARGUMENT, F)
-    native = _overflow_checked(node, [x, y], t.call("POW", x, y), _power_overflows)
+    native = t.call("POW", x, y)  # x and y are bound columns here, so an overflow quotes no tag
     return t.case((_nulls(x, y), typed_null(F)),
                   (t.or_(t.eq(y, _double(0.0)), t.eq(x, _double(1.0))), _double(1.0)),
                   (t.and_(t.eq(x, _double(0.0)), t.lt(y, _double(0.0))), invalid),
@@ -426,7 +379,8 @@ def _trim(fid: str) -> Lowerer:
             if len(value) == 1:
                 return exp.Trim(this=s, expression=t.string(value), position=position)
             pattern = _trim_pattern(_regex_class_literal(value), left, right)
-            return t.call("REGEXP_REPLACE", _text(s, BINARY_TEXT), t.string(pattern), t.string(""))  # type: ignore[arg-type]
+            return t.call("REGEXP_REPLACE", _text(s, BINARY_TEXT), t.string(pattern),  # type: ignore[arg-type]
+                          t.string(""))
 
         def runtime(s_: Tree, c: Tree) -> Tree:
             # a backslash makes any non-alphanumeric character literal in PCRE, inside a class
@@ -559,7 +513,8 @@ def _like(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     if static is True:
         return t.case((t.is_null(args[0]), typed_null(B)), default=raise_(ErrorClass.INVALID_ESCAPE, B))
     if static is False:
-        return _like_match(args[0], t.string(backslash_pattern(value, node.args[2].value)))  # type: ignore[arg-type, union-attr]
+        escape = node.args[2].value  # type: ignore[union-attr]
+        return _like_match(args[0], t.string(backslash_pattern(value, escape)))  # type: ignore[arg-type]
 
     def body(n: TCall, s: Tree, p: Tree, e: Tree) -> Tree:
         rest = t.call("REPLACE", p, t.call("CONCAT", e, e), t.string(""))
@@ -675,9 +630,9 @@ def _float_to_string(x: Tree) -> Tree:
 
 
 def _timestamp_to_string(ts: Tree) -> Tree:
+    digits = exp.Trim(this=t.call("DATE_FORMAT", ts, t.string("%f")), expression=t.string("0"), position="TRAILING")
     fraction = t.case((t.eq(t.call("MICROSECOND", ts), t.number(0)), t.string("")),
-                      default=t.call("CONCAT", t.string("."), exp.Trim(
-                          this=t.call("DATE_FORMAT", ts, t.string("%f")), expression=t.string("0"), position="TRAILING")))
+                      default=t.call("CONCAT", t.string("."), digits))
     return t.case((t.is_null(ts), typed_null(S)),
                   default=t.call("CONCAT", t.call("DATE_FORMAT", ts, t.string("%Y-%m-%d %H:%i:%s")), fraction))
 
@@ -760,11 +715,7 @@ def _guarded(lowerer: Lowerer) -> Lowerer:
             if isinstance(value, float) and not math.isfinite(value):
                 return raise_(ErrorClass.OUT_OF_RANGE, node.type.kind)
             return literal(value, node.type)
-        tree = _evaluate_all_first(node, args, lowerer(ctx, node, args))
-        if t.size(tree) > MAX_NODES:
-            ctx.refuse(node, f"the guarded SQL would exceed {MAX_NODES} nodes: MariaDB cannot evaluate a "
-                             "subexpression once for several uses, so each guard repeats it")
-        return tree
+        return _evaluate_all_first(node, args, lowerer(ctx, node, args))
     return lower
 
 
@@ -783,26 +734,21 @@ def _is_distinct(node: TCall, a: Tree, b: Tree) -> Tree:
 
 
 _FAITHFUL: dict[str, Lowerer] = {
-    "add": _arith(t.add),          # BIGINT and DOUBLE: 1690 on overflow
+    "add": _native_arith(t.add),          # BIGINT and DOUBLE: 1690 on overflow
     "subtract": _subtract,
-    "multiply": _arith(t.mul),
-    "divide": _zero_guarded(lambda a, b: _overflow_checked_pair(a, b, t.div(a, b), _quotient_overflows, F), F),
+    "multiply": _native_arith(t.mul),
+    "divide": _zero_guarded(t.div, F),
     "modulo": _modulo,
     "negate": _negate,
-    "div": _zero_guarded(lambda a, b: _overflow_checked_pair(
-        a, b, exp.IntDiv(this=t.paren(a), expression=t.paren(b)),
-        lambda x, y: t.and_(t.eq(x, _int(INT64_MIN)), t.eq(y, t.number(-1))), I), I),
-    "abs": bound(lambda node, x: _overflow_checked(node, [x], t.call("ABS", x),
-                                                   lambda v: t.eq(v, _int(INT64_MIN)) if node.type.kind is I
-                                                   else t.boolean(False))),
+    "div": _zero_guarded(lambda a, b: exp.IntDiv(this=t.paren(a), expression=t.paren(b)), I),
+    "abs": lambda ctx, node, args: _tag_free(node, args, lambda x: t.call("ABS", x)),
     "round": _round,
     "floor": _same_kind_identity("FLOOR"),
     "ceil": _same_kind_identity("CEIL"),
     "sqrt": _guard_below("SQRT", strict=True),
     "power": bound(_power),
     "ln": _guard_below("LN", strict=False),
-    "exp": bound(lambda node, x: _overflow_checked(node, [x], t.call("EXP", x),
-                                                   lambda v: t.gt(v, _double(EXP_OVERFLOW_AFTER)))),
+    "exp": lambda ctx, node, args: _tag_free(node, args, lambda x: t.call("EXP", x)),
     "is_nan": lambda ctx, node, args: t.ne(args[0], args[0]),  # DOUBLE has no NaN: false, or null
     **{op: (lambda op: bound(lambda node, a, b: compare(op, node.args[0].type.kind, a, b)))(op) for op in t.COMPARE},
     "is_distinct_from": bound(_is_distinct),
@@ -841,6 +787,11 @@ _FAITHFUL: dict[str, Lowerer] = {
 FAITHFUL: dict[str, Lowerer] = {fid: _guarded(lowerer) for fid, lowerer in _FAITHFUL.items()}
 
 
+def _native_trim(position: str) -> Lowerer:
+    return lambda ctx, node, args: exp.Trim(this=args[0], expression=args[1] if len(args) > 1 else None,
+                                            position=position)
+
+
 def _native_cast(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     if node.args[0].type.kind is node.type.kind:
         return args[0]
@@ -861,7 +812,8 @@ NATIVE: dict[str, Lowerer] = {
     "sqrt": _call("SQRT"), "power": _call("POW"), "ln": _call("LN"), "exp": _call("EXP"),
     "is_nan": lambda ctx, node, args: t.ne(args[0], args[0]),
     **{op: (lambda fn: lambda ctx, node, args: fn(args[0], args[1]))(fn) for op, fn in t.COMPARE.items()},
-    "is_distinct_from": lambda ctx, node, args: t.not_(exp.NullSafeEQ(this=t.paren(args[0]), expression=t.paren(args[1]))),
+    "is_distinct_from": lambda ctx, node, args: t.not_(exp.NullSafeEQ(this=t.paren(args[0]),
+                                                                      expression=t.paren(args[1]))),
     "is_null": lambda ctx, node, args: t.is_null(args[0]),
     "and": lambda ctx, node, args: t.and_(*args),
     "or": lambda ctx, node, args: t.or_(*args),
@@ -873,9 +825,7 @@ NATIVE: dict[str, Lowerer] = {
     "between": lambda ctx, node, args: exp.Between(this=t.paren(args[0]), low=t.paren(args[1]), high=t.paren(args[2])),
     "like": lambda ctx, node, args: (t.like(*args) if len(args) == 3
                                      else exp.Like(this=t.paren(args[0]), expression=t.paren(args[1]))),
-    "trim": lambda ctx, node, args: exp.Trim(this=args[0], expression=args[1] if len(args) > 1 else None, position="BOTH"),
-    "ltrim": lambda ctx, node, args: exp.Trim(this=args[0], expression=args[1] if len(args) > 1 else None, position="LEADING"),
-    "rtrim": lambda ctx, node, args: exp.Trim(this=args[0], expression=args[1] if len(args) > 1 else None, position="TRAILING"),
+    "trim": _native_trim("BOTH"), "ltrim": _native_trim("LEADING"), "rtrim": _native_trim("TRAILING"),
     "substring": _call("SUBSTRING"),
     "upper": _call("UPPER"), "lower": _call("LOWER"),
     "length": _call("CHAR_LENGTH"), "octet_length": _call("OCTET_LENGTH"),

@@ -31,8 +31,8 @@ database encoding UTF8, libc locale C.UTF-8, ICU 72):
   int4 (``2147483647 + 1`` overflows int4), so every integer literal is cast to BIGINT.
 * Planning constant-folds immutable subexpressions, even in CASE branches no row takes
   (``CASE WHEN x > 0 THEN 1/0 END`` fails while planning). The raise construct therefore
-  contains ``random()``, which is volatile and never folded, and a constant subtree that
-  raises per the reference is replaced by that construct.
+  contains ``random()``, which is volatile and never folded, and constant subtrees are
+  lowered to their value, computed by the reference (or to the raise construct).
 
 Errors are raised as ``CAST('rexpr:<class>;' || left(random()::text, 0) AS <type>)``: the
 message is ``invalid input syntax for type ...: "rexpr:<class>;"``, which the runner reads
@@ -240,7 +240,7 @@ def _round(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
                           (t.lt(d, t.number(-19)), num.i8(0)),
                           default=t.cast(rounded, "BIGINT", D))
         return bind(args, lambda r: int_body(*r))
-    if digits is None or _literal(digits) == 0 and isinstance(digits, TLiteral):
+    if digits is None or (isinstance(digits, TLiteral) and digits.value == 0):
         return bind(args[:1], lambda r: num.round_integral(r[0]))
     return bind(args, lambda r: t.case((t.or_(t.is_null(r[0]), t.is_null(r[1])), typed_null(F)),
                                        default=num.round_digits(r[0], r[1], bind)))
