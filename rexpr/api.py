@@ -60,6 +60,14 @@ class CompiledExpression:
         """The expression printed back from the typed tree (implicit casts made explicit)."""
         return to_text(self.tree)
 
+    def to_sql(self, engine: str, lowering: str = "faithful") -> str:
+        """The expression as one SQL expression for ``engine`` (duckdb, sqlite, postgres, mariadb).
+        The faithful lowering raises :class:`~rexpr.errors.NotPushable` rather than emit SQL that
+        would compute something else."""
+        from rexpr.sql.lowering import to_sql
+
+        return to_sql(self.tree, engine, lowering)  # type: ignore[arg-type]
+
     def evaluate(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> Evaluation:
         """Values for every row, with per-row errors (see :class:`Evaluation`)."""
         run = self._prepared.get(backend)
