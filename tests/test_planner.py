@@ -128,11 +128,7 @@ def _check_equivalence(engine: str, source_for) -> None:
     assert checked >= CASES // 3
 
 
-_KNOWN = {
-    # Found by this test; the case is seeded, so the failure is deterministic (strict xfail).
-    "mariadb": "MariaDB faithful SQL mixes collations (utf8mb4_bin and utf8mb4_uca1400_as_cs) when "
-               "lower() feeds like, and the statement fails: ltrim(trim(s, s)) like concat(..., lower(s), s)",
-}
+_KNOWN: dict[str, str] = {}  # engine -> reason for a strict xfail, while a found bug is open
 
 
 def _with_known(params: list) -> list:

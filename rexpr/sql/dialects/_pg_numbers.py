@@ -59,6 +59,14 @@ def numeric(value: int | str) -> Tree:
     return t.cast(t.string(str(value)), "NUMERIC", D)
 
 
+def literal_float(x: Tree) -> float | None:
+    """The value of a float8 literal as f8() writes it, else None (then x is a row value)."""
+    if isinstance(x, sx.Cast) and isinstance(x.this, sx.Literal) and x.this.is_string \
+            and x.to.is_type(sx.DataType.Type.DOUBLE):
+        return float(x.this.this)
+    return None
+
+
 def fabs(x: Tree) -> Tree:
     return t.call("abs", x)
 
@@ -76,8 +84,12 @@ def signed(negative: Tree, magnitude: float) -> Tree:
     return t.case((negative, f8(-magnitude)), default=f8(magnitude))
 
 
-def exact(x: Tree, bind: Bind) -> Tree:
-    """The exact value of a finite float8 as NUMERIC, from its bit pattern."""
+def exact(x: Tree, bind: Bind, magnitude_only: bool = False) -> Tree:
+    """The exact value of a finite float8 as NUMERIC (its magnitude when ``magnitude_only``),
+    from its bit pattern (a literal's exact decimal is written out directly)."""
+    value = literal_float(x)
+    if value is not None and math.isfinite(value):
+        return numeric(str(Decimal(abs(value) if magnitude_only else value)))
     hexits = t.call("encode", t.call("float8send", x), t.string("hex"))
     bits = t.cast(t.cast(t.call("concat", t.string("x"), hexits), "BIT(64)", D), "BIGINT", D)
 
@@ -93,6 +105,8 @@ def exact(x: Tree, bind: Bind) -> Tree:
             (t.eq(biased, t.number(0)), t.mul(t.cast(mantissa, "NUMERIC", D), _power_of_two(t.number(-1074)))),
             default=t.mul(t.cast(t.add(mantissa, i8(2**52)), "NUMERIC", D),
                           _power_of_two(t.sub(biased, t.number(1075)))))
+        if magnitude_only:
+            return magnitude
         return t.case((t.lt(b, t.number(0)), t.neg(magnitude)), default=magnitude)
 
     return bind([bits], fields)
@@ -128,42 +142,73 @@ def add(a: Tree, b: Tree, bind: Bind) -> Tree:
     return t.case((safe_to_halve, bind([half], body)), default=t.add(a, b))
 
 
-def _banded(ln_value: Tree, over: Callable[[], Tree], under: Callable[[], Tree], negative: Tree,
-            native: Tree, bind: Bind) -> Tree:
+def _banded(ln_value: Tree, exact_values: list[Tree], over: Callable[..., Tree], under: Callable[..., Tree],
+            negative: Tree, native: Tree, bind: Bind) -> Tree:
+    """±inf or ±0 where the result overflows or underflows, else ``native``: decided by ln
+    outside the bands, and by ``over``/``under`` of the exact operand magnitudes inside."""
+    def exactly(refs: list[Tree]) -> Tree:
+        return t.case((over(*refs), signed(negative, math.inf)), (under(*refs), signed(negative, 0.0)),
+                      default=native)
+
     def body(refs: list[Tree]) -> Tree:
         [ln] = refs
         return t.case(
             (t.gt(ln, f8(LN_OVER_SURE)), signed(negative, math.inf)),
-            (t.ge(ln, f8(LN_OVER_BAND)), t.case((over(), signed(negative, math.inf)), default=native)),
             (t.lt(ln, f8(LN_UNDER_SURE)), signed(negative, 0.0)),
-            (t.le(ln, f8(LN_UNDER_BAND)), t.case((under(), signed(negative, 0.0)), default=native)),
-            default=native)
+            (t.and_(t.lt(ln, f8(LN_OVER_BAND)), t.gt(ln, f8(LN_UNDER_BAND))), native),
+            default=bind(exact_values, exactly))
 
     return bind([ln_value], body)
 
 
-def _both_regular(a: Tree, b: Tree) -> Tree:
-    return t.and_(finite(a), finite(b), t.ne(a, f8(0.0)), t.ne(b, f8(0.0)))
+def _regular(x: Tree) -> Tree | bool:
+    """x is finite and not zero; a Python bool for a literal."""
+    value = literal_float(x)
+    if value is not None:
+        return math.isfinite(value) and value != 0
+    return t.and_(finite(x), t.ne(x, f8(0.0)))
+
+
+def _negative(x: Tree) -> Tree:
+    value = literal_float(x)
+    return t.boolean(value < 0) if value is not None else t.lt(x, f8(0.0))
+
+
+def _ln_abs(x: Tree) -> Tree:
+    value = literal_float(x)
+    if value is not None and math.isfinite(value) and value != 0:
+        return f8(math.log(abs(value)))  # only compared against bands with wide margins
+    return t.call("ln", fabs(x))
+
+
+def _guarded(a: Tree, b: Tree, guarded: Callable[[], Tree], native: Tree) -> Tree:
+    tests = [test for test in (_regular(a), _regular(b)) if test is not True]
+    if any(test is False for test in tests):
+        return native  # a zero, infinite or NaN literal operand: the native operation never raises
+    return t.case((t.and_(*tests), guarded()), default=native) if tests else guarded()
 
 
 def multiply(a: Tree, b: Tree, bind: Bind) -> Tree:
-    negative = t.ne(t.lt(a, f8(0.0)), t.lt(b, f8(0.0)))
-    ln = t.add(t.call("ln", fabs(a)), t.call("ln", fabs(b)))
-    product = lambda: t.mul(exact(fabs(a), bind), exact(fabs(b), bind))  # noqa: E731
-    over = lambda: t.ge(product(), numeric(OVERFLOW_LIMIT))  # noqa: E731
-    under = lambda: t.le(t.mul(product(), numeric(UNDERFLOW_SCALE)), numeric(1))  # noqa: E731
+    negative = t.ne(_negative(a), _negative(b))
+    ln = t.add(_ln_abs(a), _ln_abs(b))
+    over = lambda p: t.ge(p, numeric(OVERFLOW_LIMIT))  # noqa: E731
+    under = lambda p: t.le(t.mul(p, numeric(UNDERFLOW_SCALE)), numeric(1))  # noqa: E731
     native = t.mul(a, b)
-    return t.case((_both_regular(a, b), _banded(ln, over, under, negative, native, bind)), default=native)
+    return _guarded(a, b, lambda: _banded(
+        ln, [t.mul(exact(a, bind, magnitude_only=True), exact(b, bind, magnitude_only=True))],
+        over, under, negative, native, bind), native)
 
 
 def divide_nonzero(a: Tree, b: Tree, bind: Bind) -> Tree:
     """a / b for b <> 0 (the zero divisor is the caller's error)."""
-    negative = t.ne(t.lt(a, f8(0.0)), t.lt(b, f8(0.0)))
-    ln = t.sub(t.call("ln", fabs(a)), t.call("ln", fabs(b)))
-    over = lambda: t.ge(exact(fabs(a), bind), t.mul(numeric(OVERFLOW_LIMIT), exact(fabs(b), bind)))  # noqa: E731
-    under = lambda: t.le(t.mul(exact(fabs(a), bind), numeric(UNDERFLOW_SCALE)), exact(fabs(b), bind))  # noqa: E731
+    negative = t.ne(_negative(a), _negative(b))
+    ln = t.sub(_ln_abs(a), _ln_abs(b))
+    over = lambda m, n: t.ge(m, t.mul(numeric(OVERFLOW_LIMIT), n))  # noqa: E731
+    under = lambda m, n: t.le(t.mul(m, numeric(UNDERFLOW_SCALE)), n)  # noqa: E731
     native = t.div(a, b)
-    return t.case((_both_regular(a, b), _banded(ln, over, under, negative, native, bind)), default=native)
+    return _guarded(a, b, lambda: _banded(
+        ln, [exact(a, bind, magnitude_only=True), exact(b, bind, magnitude_only=True)],
+        over, under, negative, native, bind), native)
 
 
 def exp(x: Tree) -> Tree:
@@ -195,7 +240,7 @@ def power(x: Tree, y: Tree, invalid: Tree, bind: Bind) -> Tree:
             return t.case((t.gt(lx, f8(0.0)), pos(y, ratio)), (t.lt(lx, f8(0.0)), neg(y, ratio)),
                           default=t.boolean(False))
         native = t.call("power", x, y)
-        exact_power = lambda: t.call("power", exact(fabs(x), bind), exact(y, bind))  # noqa: E731
+        exact_power = lambda: t.call("power", exact(x, bind, magnitude_only=True), exact(y, bind))  # noqa: E731
         over = t.ge(exact_power(), numeric(OVERFLOW_LIMIT))
         # NUMERIC power keeps 16 significant digits of a result this small, so an exact tie
         # (0.25^537.5 = 2^-1075) can come out a hair above: treat [2^-1075, 2^-1075 (1 + 2^-40)]

@@ -6,6 +6,9 @@ tree, whatever the precedence rules of the engine."""
 
 from __future__ import annotations
 
+import contextvars
+from typing import Callable
+
 from sqlglot import exp
 
 Tree = exp.Expression
@@ -164,3 +167,22 @@ def is_simple(node: Tree) -> bool:
     return isinstance(node, (exp.Column, exp.Literal, exp.Null, exp.Boolean))
 
 
+
+
+# How many bound scopes enclose the tree being built. A bound value is named after its depth:
+# every reference a scope can see to an enclosing scope names a smaller depth, so a name never
+# captures an outer one, and the same expression always prints the same SQL.
+_DEPTH: contextvars.ContextVar[int] = contextvars.ContextVar("rexpr_bind_depth", default=0)
+
+
+def scope_alias() -> str:
+    return f"rx_{_DEPTH.get()}"
+
+
+def in_scope(body: Callable[[list[Tree]], Tree], refs: list[Tree]) -> Tree:
+    """``body(refs)``, built one scope deeper."""
+    token = _DEPTH.set(_DEPTH.get() + 1)
+    try:
+        return body(refs)
+    finally:
+        _DEPTH.reset(token)

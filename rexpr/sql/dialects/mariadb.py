@@ -50,7 +50,6 @@ and raises its own out_of_range, so the message cannot carry a foreign tag.
 from __future__ import annotations
 
 import datetime as dt
-import hashlib
 import math
 from typing import Callable
 
@@ -102,8 +101,7 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | N
     the values; values cheap to repeat stay inline unless ``always``."""
     if kinds is None or (not always and all(t.is_simple(v) for v in values)):
         return body(values)
-    printed = "\x1f".join(v.sql(dialect=D) for v in values)
-    alias = "rx_" + hashlib.sha1(printed.encode("utf-8")).hexdigest()[:12]
+    alias = t.scope_alias()
     refs: list[Tree] = []
     array: list[Tree] = []
     columns: list[exp.Expression] = []
@@ -121,7 +119,8 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: list | N
     table = exp.JSONTable(this=t.call("JSON_ARRAY", *array), path=t.string("$"),
                           schema=exp.JSONSchema(expressions=columns))
     source = exp.Table(this=table, alias=exp.TableAlias(this=exp.to_identifier(alias)))
-    return exp.Subquery(this=exp.select(body(refs)).from_(source))
+    # copy=False: the builders copy their arguments by default, which makes nesting quadratic
+    return exp.Subquery(this=exp.Select(expressions=[t.in_scope(body, refs)]).from_(source, copy=False))
 
 
 def bound(body: Callable[..., Tree]) -> Lowerer:
@@ -166,6 +165,13 @@ def literal(value: object, data_type: DataType) -> Tree:
 
 def _text(a: Tree, collation: exp.Expression = NO_PAD) -> Tree:
     return t.collate(a, collation)
+
+
+def _implicit(text: Tree) -> Tree:
+    """A text result whose collation a COLLATE inside made explicit, back to the connection's
+    utf8mb4_bin with implicit coercibility (CAST AS CHAR does that), like a column: two
+    different explicit collations in one operation are an error (1267)."""
+    return t.cast(text, "CHAR", D)
 
 
 def compare(op: str, kind: Kind, a: Tree, b: Tree) -> Tree:
@@ -379,8 +385,8 @@ def _trim(fid: str) -> Lowerer:
             if len(value) == 1:
                 return exp.Trim(this=s, expression=t.string(value), position=position)
             pattern = _trim_pattern(_regex_class_literal(value), left, right)
-            return t.call("REGEXP_REPLACE", _text(s, BINARY_TEXT), t.string(pattern),  # type: ignore[arg-type]
-                          t.string(""))
+            return _implicit(t.call("REGEXP_REPLACE", _text(s, BINARY_TEXT), t.string(pattern),  # type: ignore[arg-type]
+                                    t.string("")))
 
         def runtime(s_: Tree, c: Tree) -> Tree:
             # a backslash makes any non-alphanumeric character literal in PCRE, inside a class
@@ -389,7 +395,7 @@ def _trim(fid: str) -> Lowerer:
             klass = t.call("CONCAT", t.string("["), escaped, t.string("]"))
             pattern = _trim_pattern(klass, left, right)
             return t.case((t.eq(t.call("CHAR_LENGTH", c), t.number(0)), s_),
-                          default=t.call("REGEXP_REPLACE", _text(s_, BINARY_TEXT), pattern, t.string("")))
+                          default=_implicit(t.call("REGEXP_REPLACE", _text(s_, BINARY_TEXT), pattern, t.string(""))))
         return bind(args, lambda r: runtime(*r), [S, S])
     return lower
 
@@ -451,7 +457,7 @@ def _expand_specials(s: Tree, pairs: tuple[tuple[str, str], ...]) -> Tree:
 
 def _upper(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     expanded = _expand_specials(args[0], cm.special("upper"))
-    return t.call("UPPER", _text(expanded, UNICODE_CASE))
+    return _implicit(t.call("UPPER", _text(expanded, UNICODE_CASE)))
 
 
 def _lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
@@ -460,7 +466,7 @@ def _lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
         sigma = t.call("REGEXP_REPLACE", expanded, t.string(cm.final_sigma_pattern()),
                        t.string("\\1" + cm.FINAL_SIGMA))
         has_sigma = t.gt(t.call("LOCATE", _text(t.string(cm.SIGMA), BINARY_TEXT), s), t.number(0))
-        return t.call("LOWER", _text(t.case((has_sigma, sigma), default=expanded), UNICODE_CASE))
+        return _implicit(t.call("LOWER", _text(t.case((has_sigma, sigma), default=expanded), UNICODE_CASE)))
     return bound(body)(ctx, node, args)
 
 
@@ -750,7 +756,7 @@ _FAITHFUL: dict[str, Lowerer] = {
     "ln": _guard_below("LN", strict=False),
     "exp": lambda ctx, node, args: _tag_free(node, args, lambda x: t.call("EXP", x)),
     "is_nan": lambda ctx, node, args: t.ne(args[0], args[0]),  # DOUBLE has no NaN: false, or null
-    **{op: (lambda op: bound(lambda node, a, b: compare(op, node.args[0].type.kind, a, b)))(op) for op in t.COMPARE},
+    **{op: (lambda op: lambda ctx, node, args: compare(op, node.args[0].type.kind, *args))(op) for op in t.COMPARE},
     "is_distinct_from": bound(_is_distinct),
     "is_null": lambda ctx, node, args: t.is_null(args[0]),
     "and": lambda ctx, node, args: _logic.chain(ctx, node, args, SQL, conjunction=True),

@@ -44,7 +44,6 @@ it back), so guarded SQL grows linearly with the expression.
 from __future__ import annotations
 
 import datetime as dt
-import hashlib
 import math
 from typing import Callable
 
@@ -95,8 +94,7 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: object =
     values keep their own types, so ``kinds`` is not needed here)."""
     if all(t.is_simple(v) for v in values):
         return body(values)
-    printed = "\x1f".join(v.sql(dialect=D) for v in values)
-    alias = "rx_" + hashlib.sha1(printed.encode("utf-8")).hexdigest()[:12]
+    alias = t.scope_alias()
     refs: list[Tree] = []
     columns: list[Tree] = []
     for i, value in enumerate(values):
@@ -104,11 +102,13 @@ def bind(values: list[Tree], body: Callable[[list[Tree]], Tree], kinds: object =
             refs.append(value)
             continue
         name = f"v{i}"
-        columns.append(exp.alias_(value, name, quoted=False))
+        columns.append(exp.Alias(this=value, alias=exp.to_identifier(name)))
         refs.append(exp.column(name, table=alias))
-    inner = exp.select(*columns).offset(0)
+    # built with copy=False throughout: the builders copy their arguments by default, which
+    # makes nested scopes quadratic
+    inner = exp.Select(expressions=columns).offset(0, copy=False)
     source = exp.Subquery(this=inner, alias=exp.TableAlias(this=exp.to_identifier(alias)))
-    return exp.Subquery(this=exp.select(body(refs)).from_(source))
+    return exp.Subquery(this=exp.Select(expressions=[t.in_scope(body, refs)]).from_(source, copy=False))
 
 
 def bound(body: Callable[..., Tree]) -> Callable[[LowerContext, TCall, list[Tree]], Tree]:
@@ -159,7 +159,12 @@ def compare(op: str, kind: Kind, a: Tree, b: Tree) -> Tree:
 
 
 def _compare_lowerer(op: str) -> Lowerer:
-    return bound(lambda node, a, b: compare(op, node.args[0].type.kind, a, b))
+    def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
+        kind = node.args[0].type.kind
+        if kind is F:  # the NaN correction repeats both operands
+            return bind(args, lambda r: compare(op, kind, r[0], r[1]))
+        return compare(op, kind, args[0], args[1])
+    return lower
 
 
 # ---------------------------------------------------------------------------------- may raise
@@ -277,6 +282,13 @@ def _substring(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
             (t.le(t.add(length, start), t.number(1)), t.cast(t.string(""), "TEXT", D)),
             default=t.call("substr", s, t.number(1), _int4(t.sub(t.add(length, start), t.number(1)))))
     return bind(args, lambda r: body(*r))
+
+
+def _case_mapped(fn: str, s: Tree) -> Tree:
+    """upper/lower under the ICU root collation. The COLLATE clause makes the result's
+    collation explicit, and PostgreSQL refuses to compare or join it with another explicit
+    one (42P21); a scalar subquery's output is implicit again."""
+    return exp.Subquery(this=exp.Select(expressions=[t.call(fn, t.collate(s, UNICODE_CASE))]))
 
 
 def _ends_with(node: TCall, s: Tree, suffix: Tree) -> Tree:
@@ -547,8 +559,8 @@ _FAITHFUL: dict[str, Lowerer] = {
     "ltrim": _trim("ltrim"),
     "rtrim": _trim("rtrim"),
     "substring": _substring,
-    "upper": lambda ctx, node, args: t.call("upper", t.collate(args[0], UNICODE_CASE)),
-    "lower": lambda ctx, node, args: t.call("lower", t.collate(args[0], UNICODE_CASE)),
+    "upper": lambda ctx, node, args: _case_mapped("upper", args[0]),
+    "lower": lambda ctx, node, args: _case_mapped("lower", args[0]),
     "length": _call("char_length", "BIGINT"),
     "octet_length": _call("octet_length", "BIGINT"),
     "concat_op": lambda ctx, node, args: exp.DPipe(this=t.paren(args[0]), expression=t.paren(args[1])),
