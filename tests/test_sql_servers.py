@@ -323,7 +323,8 @@ def _near_limit_pairs(rng: random.Random) -> tuple[list[float], list[float]]:
     return a, b
 
 
-@pytest.mark.parametrize("text", ["a + b", "a - b", "a * b", "a / b", "a % b", "power(a, b)"])
+@pytest.mark.parametrize("text", ["a + b", "a - b", "a * b", "a / b", "a % b", "power(a, b)", "a * 1e300",
+                                  "a * 2.5e-300", "a / 1e-300", "7e300 / a", "a * 0.5", "a + 1.7976931348623157e308"])
 def test_float_arithmetic_near_the_limits(server: tuple[str, Runner], text: str) -> None:
     # oracle: the reference's IEEE 754 binary64 arithmetic (Python float, math.fmod/pow)
     name, runner = server

@@ -81,12 +81,19 @@ def terminal_summary(doc: dict[str, Any], colour: bool, repros: int = 10) -> str
                      f"{len(drift['fixed'])} fixed, {len(drift['not_rerun'])} not rerun")
     for d in doc["disagreements"][:repros]:
         repro = d.get("repro") or {}
-        lines.append(f"\n[{d['lowering']}] {d['engine']} {d['function']} ({d['case_id']}"
-                     f"{', ' + d['drift'] if d.get('drift') else ''}): {repro.get('expression', d['expression'])}"
-                     f"\n    row {json.dumps(repro.get('row', {}), ensure_ascii=False)}: "
-                     f"{'published' if d['engine'] == 'reference' else 'reference'} "
-                     f"{json.dumps(repro.get('expected'), ensure_ascii=False)}, {d['engine']} "
-                     f"{json.dumps(repro.get('observed'), ensure_ascii=False)}")
+        oracle = "published" if d["engine"] == "reference" else "reference"
+        head = f"\n[{d['lowering']}] {d['engine']} {d['function']} ({d['case_id']}" \
+               f"{', ' + d['drift'] if d.get('drift') else ''}): "
+        if repro:
+            lines.append(head + repro["expression"] +
+                         f"\n    row {json.dumps(repro.get('row', {}), ensure_ascii=False)}: {oracle} "
+                         f"{json.dumps(repro.get('expected'), ensure_ascii=False)}, {d['engine']} "
+                         f"{json.dumps(repro.get('observed'), ensure_ascii=False)}")
+        else:
+            first = (d.get("rows") or [{}])[0]
+            lines.append(head + d["expression"] + "\n    not reduced (it does not reproduce on one row alone); "
+                         f"row {first.get('row')}: {oracle} {json.dumps(first.get('expected'), ensure_ascii=False)}, "
+                         f"{d['engine']} {json.dumps(first.get('observed'), ensure_ascii=False)}")
         if repro.get("sql"):
             lines.append("    " + repro["sql"].replace("\n", "\n    "))
     if len(doc["disagreements"]) > repros:

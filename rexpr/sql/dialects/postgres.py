@@ -22,7 +22,11 @@ database encoding UTF8, libc locale C.UTF-8, ICU 72):
   in Python's Unicode 14 (checked exhaustively by the tests).
 * ``LIKE`` escapes with backslash by default; ``ESCAPE ''`` turns escaping off. An escape
   before an ordinary character is accepted silently (``'ab' LIKE '\\ab'`` is true), so the
-  catalogue's invalid-escape error is checked before matching.
+  catalogue's invalid-escape error is checked before matching. An escape that is a row value
+  goes through ``like_escape(pattern, escape)``, which is what ``ESCAPE <expression>`` means.
+* A COLLATE clause makes a result's collation explicit, and two different explicit
+  collations in one operation are an error (42P21); the results of upper/lower (ICU) are
+  returned through a scalar subquery, whose output is implicit again.
 * ``'\\t12\\n'::bigint`` is 12 (whitespace is trimmed), ``'-nan'::float8`` is NaN; the cast
   table trims U+0020 only, so strings are validated with regular expressions first.
 * float8 text output (extra_float_digits >= 1) is the shortest round-trip digits, but
