@@ -672,3 +672,17 @@ def test_an_engine_that_goes_away_fails_its_remaining_shards_while_the_others_fi
     assert engine_info["postgres"]["failed_shards"] == 2
     others = [r for r in results if r["engine"] != "postgres"]
     assert others and not [r for r in others if r["outcome"] in ("failed", "unavailable")]
+
+
+@pytest.mark.parametrize("args", [("functions",), ("diff", "--categories", "nulls", "--engines", "arrow")])
+def test_a_closed_pipe_stops_the_command_quietly(args: tuple[str, ...], tmp_path: Path) -> None:
+    # `rexpr diff | head`: the reader goes away before the command writes. Exit status 128 + 13
+    # (SIGPIPE), as a command killed by the signal gives (common practice, no source).
+    extra = ("--report", str(tmp_path / "r")) if args[0] == "diff" else ()
+    process = subprocess.Popen([sys.executable, "-m", "rexpr.cli.main", *args, *extra],
+                               stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    assert process.stdout is not None and process.stderr is not None
+    process.stdout.close()
+    error = process.stderr.read().decode()
+    assert process.wait(timeout=300) == 141
+    assert error == ""

@@ -80,12 +80,27 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        return _reader_went_away()
     except Exception as exc:  # noqa: BLE001 - the last line of defence: no raw traceback for users
         if os.environ.get("REXPR_DEBUG"):
             raise
         print(f"internal error: {type(exc).__name__}: {exc}\n(set REXPR_DEBUG=1 for the traceback; "
               "please report it)", file=sys.stderr)
         return EXIT_INTERNAL
+
+
+def _reader_went_away() -> int:
+    """The reader of stdout closed it (``rexpr diff | head``): stop quietly, as a command killed by
+    SIGPIPE would, with exit status 128 + 13 (common practice, no source). stdout is pointed at
+    the null device so the interpreter's final flush does not raise again (the recipe in
+    Python's ``signal`` documentation, "Note on SIGPIPE")."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except OSError:
+        pass
+    return 141
 
 
 if __name__ == "__main__":
