@@ -66,10 +66,18 @@ def port_calls(rows: int, seed: int = 2026) -> pa.Table:
     return table.cast(SCHEMA.to_arrow())
 
 
-def write_sources(table: pa.Table, directory: Path, row_group_size: int = 65_536,
-                  sqlite_rows: int = 250_000) -> dict[str, Path]:
-    """The rows as a Parquet file and a DuckDB database, and the first ``sqlite_rows`` of them
-    as a SQLite database (row-at-a-time inserts would dominate the demo's minute otherwise)."""
+def spread_rows(table: pa.Table, rows: int) -> pa.Table:
+    """``rows`` rows taken evenly over the whole table: the port calls are in arrival order, so
+    the first rows alone would cover only January."""
+    if table.num_rows <= rows:
+        return table
+    step = table.num_rows / rows
+    return table.take(pa.array([int(k * step) for k in range(rows)], pa.int64()))
+
+
+def write_sources(table: pa.Table, directory: Path, copy: pa.Table, row_group_size: int = 65_536) -> dict[str, Path]:
+    """The rows as a Parquet file and a DuckDB database, and ``copy`` (fewer rows: row-at-a-time
+    inserts would dominate the demo's minute otherwise) as a SQLite database."""
     import duckdb
 
     directory.mkdir(parents=True, exist_ok=True)
@@ -91,7 +99,7 @@ def write_sources(table: pa.Table, directory: Path, row_group_size: int = 65_536
         lite.execute(f"CREATE TABLE port_calls (call_id INTEGER, vessel TEXT, berth INTEGER, draft_m REAL, "
                      f"tonnage INTEGER, eta TEXT, cargo TEXT, crane_hours REAL, flag_state TEXT, hazardous INTEGER)")
         placeholders = ", ".join("?" for _ in table.column_names)
-        for batch in table.slice(0, sqlite_rows).to_batches(100_000):
+        for batch in copy.to_batches(100_000):
             data = batch.to_pydict()
             data["eta"] = [None if v is None else v.isoformat(sep=" ") for v in data["eta"]]
             lite.executemany(f"INSERT INTO port_calls ({columns}) VALUES ({placeholders})", zip(*data.values()))
