@@ -11,6 +11,10 @@ Rules (docs/semantics.md, "Comparing results"):
    not require, correct rounding of those). Arithmetic, sqrt and casts are exact in practice.
 6. Everything else compares with Python ==, after the type check: a bool is never equal to
    an int, an int never to a float.
+7. The result type is the expression's: a local backend must return its values in the
+   canonical Arrow type (an int32 column for an int64 expression is a bug even when every
+   value compares equal); SQL engines' values are mapped to it, and what does not map
+   losslessly is reported per row (``type_mismatches``).
 """
 
 from __future__ import annotations
@@ -18,6 +22,9 @@ from __future__ import annotations
 import math
 import struct
 
+from rexpr.evaluation import Evaluation
+from rexpr.schema import to_arrow_type
+from rexpr.types import DataType
 from rexpr.values import RowError
 
 FLOAT_ULPS = 2
@@ -67,3 +74,13 @@ def row_differences(expected: list[object], observed: list[object], limit: int =
     if len(expected) != len(observed):
         out.append((-1, f"{len(expected)} rows", f"{len(observed)} rows"))
     return out
+
+
+def result_type_problem(expected_type: DataType, observed: Evaluation) -> str | None:
+    """Rule 7: what is wrong with the type of ``observed``, or None."""
+    if observed.type.kind is not expected_type.kind:
+        return f"result type {observed.type.name}, expected {expected_type.name}"
+    want = to_arrow_type(expected_type)
+    if not observed.values.type.equals(want):
+        return f"values are Arrow {observed.values.type}, expected {want}"
+    return None

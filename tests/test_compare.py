@@ -12,8 +12,7 @@ import pyarrow as pa
 import pytest
 
 from rexpr.catalogue.model import ErrorClass
-from rexpr.compare import FLOAT_ULPS, floats_agree, row_differences, same_result, ulp_distance
-from rexpr.differential.runner import type_problem
+from rexpr.compare import FLOAT_ULPS, floats_agree, result_type_problem, row_differences, same_result, ulp_distance
 from rexpr.evaluation import Evaluation
 from rexpr.types import DataType, Kind
 from rexpr.values import RowError
@@ -152,7 +151,7 @@ def test_result_type_rule_wants_the_canonical_arrow_type():
     right = Evaluation(int64, pa.array([1, 2], pa.int64()), {})
     narrow = Evaluation(int64, pa.array([1, 2], pa.int32()), {})
     floats = Evaluation(DataType(Kind.FLOAT64), pa.array([1.0, 2.0], pa.float64()), {})
-    assert type_problem(int64, right) is None
-    assert "int32" in (type_problem(int64, narrow) or "")
-    assert "float64" in (type_problem(int64, floats) or "")
+    assert result_type_problem(int64, right) is None
+    assert "int32" in (result_type_problem(int64, narrow) or "")
+    assert "float64" in (result_type_problem(int64, floats) or "")
     assert row_differences(right.to_pylist(), narrow.to_pylist()) == []  # values alone cannot tell

@@ -19,11 +19,10 @@ from typing import Iterable, Literal, Sequence
 import pyarrow as pa
 
 from rexpr.backends import LOCAL_BACKENDS, get_backend
-from rexpr.compare import row_differences
+from rexpr.compare import result_type_problem, row_differences
 from rexpr.differential.cases import Batch, DiffCase
 from rexpr.errors import NotPushable, RexprError
 from rexpr.evaluation import Evaluation
-from rexpr.schema import to_arrow_type
 from rexpr.typed import functions_used
 from rexpr.values import RowError
 
@@ -141,17 +140,6 @@ def _describe(exc: BaseException) -> str:
     return exc.message if isinstance(exc, RexprError) else f"{type(exc).__name__}: {exc}"
 
 
-def type_problem(expected_type, observed: Evaluation) -> str | None:
-    """Result-type rule: values must come back in the expression's canonical Arrow type (an
-    int32 column for an int64 expression is a bug even when every value compares equal)."""
-    if observed.type.kind is not expected_type.kind:
-        return f"result type {observed.type.name}, expected {expected_type.name}"
-    want = to_arrow_type(expected_type)
-    if not observed.values.type.equals(want):
-        return f"values are Arrow {observed.values.type}, expected {want}"
-    return None
-
-
 def _diffs(expected: Sequence[object], observed: Sequence[object]) -> tuple[RowDiff, ...]:
     return tuple(RowDiff(*d) for d in row_differences(list(expected), list(observed), DIFF_ROWS))
 
@@ -216,7 +204,7 @@ def run_local(batch: Batch, state: EngineState, expected: Expected) -> list[Case
             results.append(_result(case, state.name, LOCAL, "failed", reason=_describe(exc)))
             continue
         results.append(_compared(case, state.name, LOCAL, ours, evaluation.to_pylist(),
-                                 reason=type_problem(case.tree.type, evaluation) or ""))
+                                 reason=result_type_problem(case.tree.type, evaluation) or ""))
     return results
 
 
