@@ -68,6 +68,45 @@ def _match(signature: Signature, kinds: list[Kind]) -> int | None:
     return cost
 
 
+def _best_signature(function_id: str, kinds: tuple[Kind, ...]) -> tuple[tuple[Kind, ...], Kind] | None:
+    """The cheapest signature of a catalogue function for argument kinds: its parameter kinds
+    (variadic ones repeated to the argument count) and result kind, or None if none fits."""
+    best: tuple[int, Signature] | None = None
+    for signature in BY_ID[function_id].signatures:
+        cost = _match(signature, list(kinds))
+        if cost is not None and (best is None or cost < best[0]):
+            best = (cost, signature)
+    if best is None:
+        return None
+    params = list(best[1].params)
+    params += [params[-1]] * (len(kinds) - len(params))
+    return tuple(params), best[1].result
+
+
+# The catalogue is fixed, so a resolution depends on the function and argument kinds alone.
+# Keys use the kinds' ids: Kind members are singletons, and hashing an Enum member runs Python
+# code, which showed up in the compile profile.
+_RESOLVED: dict[tuple, tuple[tuple[Kind, ...], Kind, FunctionSpec] | None] = {}
+_TYPES: dict[tuple[int, bool], DataType] = {}
+
+
+def _resolution(function_id: str, kinds: tuple[Kind, ...]) -> tuple[tuple[Kind, ...], Kind, FunctionSpec] | None:
+    key = (function_id, *map(id, kinds))
+    if key not in _RESOLVED:
+        best = _best_signature(function_id, kinds)
+        _RESOLVED[key] = None if best is None else (*best, BY_ID[function_id])
+    return _RESOLVED[key]
+
+
+def _data_type(kind: Kind, nullable: bool) -> DataType:
+    """One shared instance per scalar type (DataType is a value; equal instances are interchangeable)."""
+    key = (id(kind), nullable)
+    found = _TYPES.get(key)
+    if found is None:
+        found = _TYPES[key] = DataType(kind, nullable)
+    return found
+
+
 def _arity_text(spec: FunctionSpec) -> str:
     sig = spec.signatures[0]
     most = len(sig.params)
@@ -84,8 +123,7 @@ class _Checker:
         self.schema = schema
 
     def visit(self, node: n.Node) -> Typed:
-        method = getattr(self, "visit_" + type(node).__name__)
-        return method(node)
+        return _VISITORS[type(node)](self, node)
 
     # leaves ------------------------------------------------------------------------------
     def visit_Literal(self, node: n.Literal, negated: bool = False) -> Typed:
@@ -96,13 +134,13 @@ class _Checker:
                 raise TypeProblem(f"integer literal {node.text} does not fit in int64", code="invalid_literal",
                                   span=node.span, hint="int64 holds -9223372036854775808 to "
                                                        "9223372036854775807; write a float like 1e19 instead")
-            return TLiteral(value, INT64.with_nullable(False), node.span)
+            return TLiteral(value, _data_type(Kind.INT64, False), node.span)
         if kind == "float":
             value = -node.value if negated else node.value  # type: ignore[operator]
             if math.isinf(value):
                 raise TypeProblem(f"float literal {node.text} is too large for float64", code="invalid_literal",
                                   span=node.span)
-            return TLiteral(value, FLOAT64.with_nullable(False), node.span)
+            return TLiteral(value, _data_type(Kind.FLOAT64, False), node.span)
         types = {"string": STRING, "bool": BOOL, "date": DATE, "timestamp": TIMESTAMP}
         if kind == "null":
             return TLiteral(None, NULL, node.span)
@@ -143,20 +181,12 @@ class _Checker:
 
     # calls -------------------------------------------------------------------------------
     def resolve(self, function_id: str, args: list[Typed], span: Span, arg_spans: list[Span] | None = None) -> TCall:
-        spec = BY_ID[function_id]
-        kinds = [a.type.kind for a in args]
-        best: tuple[int, Signature] | None = None
-        for signature in spec.signatures:
-            cost = _match(signature, kinds)
-            if cost is not None and (best is None or cost < best[0]):
-                best = (cost, signature)
-        if best is None:
-            raise self._no_signature(spec, args, span)
-        signature = best[1]
-        params = list(signature.params)
-        params += [params[-1]] * (len(args) - len(params))
-        coerced = tuple(coerce(a, p) for a, p in zip(args, params))
-        result = DataType(signature.result, spec.nullable([a.type for a in coerced]))
+        resolved = _resolution(function_id, tuple(a.type.kind for a in args))
+        if resolved is None:
+            raise self._no_signature(BY_ID[function_id], args, span)
+        params, result_kind, spec = resolved
+        coerced = tuple(a if a.type.kind is p else coerce(a, p) for a, p in zip(args, params))
+        result = _data_type(result_kind, spec.nullable([a.type for a in coerced]))
         return TCall(function_id, coerced, result, span)
 
     def _no_signature(self, spec: FunctionSpec, args: list[Typed], span: Span) -> TypeProblem:
@@ -305,3 +335,8 @@ class _Checker:
         hint = ("strings and numbers never convert implicitly; cast one side" if
                 {Kind.STRING} & kinds and _NUMBERS & kinds else "cast the branches to one type")
         raise TypeProblem(f"{what} mix {first.type.name} and {other.type.name}", span=other.span, hint=hint)
+
+
+_VISITORS = {node_type: getattr(_Checker, "visit_" + node_type.__name__)
+             for node_type in (n.Literal, n.FieldRef, n.Call, n.Unary, n.Binary, n.Chain, n.IsNull, n.IsDistinct,
+                               n.InList, n.Between, n.Like, n.Cast, n.Case, n.Parens)}

@@ -1,4 +1,7 @@
-"""Text to syntax tree: lark LALR with an inline transformer (no intermediate parse tree).
+"""Text to syntax tree: the lark LALR grammar, run by a lean driver over lark's own tables
+(``rexpr.language.lalr``) that builds nodes during the parse (no intermediate parse tree).
+Text the driver rejects is parsed again by lark itself, whose exceptions carry what the error
+messages say was expected.
 
 Building nodes during the parse keeps it iterative, so pathological nesting is caught by the
 depth limit instead of Python's recursion limit.
@@ -12,10 +15,11 @@ import threading
 from functools import lru_cache
 from importlib import resources
 
-from lark import Lark, Token, Transformer, v_args
+from lark import Lark, Token, Transformer, Tree
 from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken, VisitError
 
 from rexpr.errors import LimitExceeded, RexprError, Span, SyntaxProblem
+from rexpr.language import lalr
 from rexpr.language import nodes as n
 from rexpr.language.datetime_text import parse_date_text, parse_timestamp_text
 
@@ -34,47 +38,49 @@ _TERMINAL_NAMES = {
     "QUOTED_NAME": "a quoted name", "$END": "end of expression",
 }
 
+_TOKENS = (Token, lalr.Tok)
 
-def _token_span(token: Token) -> Span:
+
+def _token_span(token: Token | lalr.Tok) -> Span:
     start = token.start_pos or 0
     return Span(start, token.end_pos if token.end_pos is not None else start + len(token))
 
 
-def _span_of(item: object) -> Span:
-    if isinstance(item, Token):
-        return _token_span(item)
-    return item.span  # type: ignore[attr-defined]
+def _bounds(item: object) -> tuple[int, int]:
+    if isinstance(item, _TOKENS):
+        start = item.start_pos or 0  # type: ignore[union-attr]
+        return start, item.end_pos if item.end_pos is not None else start + len(item)  # type: ignore[union-attr]
+    span = item.span  # type: ignore[attr-defined]
+    return span.start, span.end
 
 
-def _covering(*items: object) -> Span:
-    spans = [_span_of(i) for i in items if i is not None]
-    span = spans[0]
-    for other in spans[1:]:
-        span = span.union(other)
-    return span
+def _covering(first: object, last: object) -> Span:
+    """The span from one token or node to another (the pieces of a rule come in text order)."""
+    first_start, first_end = _bounds(first)
+    last_start, last_end = _bounds(last)
+    return Span(min(first_start, last_start), max(first_end, last_end))
 
 
 def _unquote(text: str, quote: str) -> str:
     return text[1:-1].replace(quote * 2, quote)
 
 
-@v_args(inline=True)
-class _Builder(Transformer):
-    """Turns reductions into nodes while tracking depth."""
+class _Builder:
+    """Turns reductions into nodes while tracking depth; one instance per parse. Every public
+    method is named after a grammar rule or alias and takes that rule's shaped children."""
 
     def __init__(self) -> None:
-        super().__init__()
-        self._local = threading.local()
-
-    @property
-    def depth(self) -> dict[int, int]:
-        return self._local.depth
-
-    def reset(self) -> None:
-        self._local.depth = {}
+        self.depth: dict[int, int] = {}
 
     def _made(self, node: n.Node, *children: object) -> n.Node:
-        depth = 1 + max((self.depth.get(id(c), 0) for c in children if c is not None), default=0)
+        # Leaves (literals, fields) are depth 1 and are not recorded, hence the default of 1.
+        known, deepest = self.depth, 0
+        for child in children:
+            if child is not None:
+                below = known.get(id(child), 1)
+                if below > deepest:
+                    deepest = below
+        depth = deepest + 1
         if depth > MAX_DEPTH:
             raise LimitExceeded(
                 f"expression nests deeper than {MAX_DEPTH} levels",
@@ -89,22 +95,22 @@ class _Builder(Transformer):
         if len(digits) > 20:  # far beyond int64; also keeps int() under its digit limit
             raise SyntaxProblem(f"integer literal with {len(digits)} digits does not fit in int64",
                                 code="invalid_literal", span=_token_span(tok))
-        return self._made(n.Literal("int", int(digits), _token_span(tok), str(tok)))
+        return n.Literal("int", int(digits), _token_span(tok), str(tok))  # a leaf: depth 1
 
     def float_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("float", float(tok), _token_span(tok), str(tok)))
+        return n.Literal("float", float(str(tok)), _token_span(tok), str(tok))  # a leaf: depth 1
 
     def string_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("string", _unquote(str(tok), "'"), _token_span(tok), str(tok)))
+        return n.Literal("string", _unquote(str(tok), "'"), _token_span(tok), str(tok))  # a leaf: depth 1
 
     def true_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("bool", True, _token_span(tok), "true"))
+        return n.Literal("bool", True, _token_span(tok), "true")  # a leaf: depth 1
 
     def false_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("bool", False, _token_span(tok), "false"))
+        return n.Literal("bool", False, _token_span(tok), "false")  # a leaf: depth 1
 
     def null_literal(self, tok: Token) -> n.Node:
-        return self._made(n.Literal("null", None, _token_span(tok), "null"))
+        return n.Literal("null", None, _token_span(tok), "null")  # a leaf: depth 1
 
     def typed_literal(self, kind_tok: Token, value_tok: Token) -> n.Node:
         kind = str(kind_tok).lower()
@@ -120,12 +126,12 @@ class _Builder(Transformer):
                 f"unknown typed literal {str(kind_tok)!r}", span=_token_span(kind_tok),
                 hint="typed literals are date '2024-05-01' and timestamp '2024-05-01 10:00:00'; "
                      "a name followed by a string is not valid otherwise")
-        return self._made(n.Literal(kind, value, span, text))
+        return n.Literal(kind, value, span, text)  # a leaf: depth 1
 
     # names and fields
     def field(self, *names: Token) -> n.Node:
         path = tuple(_unquote(str(t), '"') if t.type == "QUOTED_NAME" else str(t) for t in names)
-        return self._made(n.FieldRef(path, _covering(*names)))
+        return n.FieldRef(path, _covering(names[0], names[-1]))  # a leaf: depth 1
 
     # calls
     def call(self, name: Token, lpar: Token, args: list | None, rpar: Token) -> n.Node:
@@ -140,7 +146,7 @@ class _Builder(Transformer):
         return self._made(n.Cast(operand, text, _covering(cast_tok, rpar), span), operand)
 
     def type_name(self, *words: Token) -> tuple[str, Span]:
-        return " ".join(str(w).lower() for w in words), _covering(*words)
+        return " ".join(str(w).lower() for w in words), _covering(words[0], words[-1])
 
     def when_clause(self, cond: n.Node, value: n.Node) -> tuple:
         return (cond, value)
@@ -229,13 +235,40 @@ def _grammar_text() -> str:
     return resources.files("rexpr.language").joinpath("grammar.lark").read_text(encoding="utf-8")
 
 
-_BUILDER = _Builder()
+_RULE_METHODS = frozenset(name for name in vars(_Builder) if not name.startswith("_"))
+
+
+class _LarkBuilder(Transformer):
+    """Hands lark's reductions to the current thread's :class:`_Builder` (lark's own parse is
+    the fallback for text the lean driver rejects, so it must build the same nodes)."""
+
+    def __init__(self) -> None:
+        super().__init__(visit_tokens=False)
+        self.local = threading.local()
+
+    def __default__(self, data: str, children: list, meta: object) -> object:
+        if data in _RULE_METHODS:
+            return getattr(self.local.builder, data)(*children)
+        return Tree(data, children, meta)  # a ``_rule``: lark splices it into its parent
+
+
+_LARK_BUILDER = _LarkBuilder()
 
 
 @lru_cache(maxsize=1)
 def _lark() -> Lark:
     return Lark(_grammar_text(), parser="lalr", lexer="contextual", maybe_placeholders=True,
-                transformer=_BUILDER)
+                transformer=_LARK_BUILDER)
+
+
+@lru_cache(maxsize=1)
+def _tables() -> lalr.Tables | None:
+    """The lean driver's tables, or None when this lark release lays out its tables in a way the
+    driver does not know (it reads lark internals): parsing then goes through lark alone."""
+    try:
+        return lalr.Tables(_lark(), _Builder)
+    except Exception:  # noqa: BLE001 - any layout surprise means: do not use the lean driver
+        return None
 
 
 def _expected_text(expected: set[str]) -> str:
@@ -247,6 +280,16 @@ def _expected_text(expected: set[str]) -> str:
 
 def parse(text: str) -> n.Node:
     """Parse expression text into a syntax tree, or raise a :class:`~rexpr.errors.ExpressionError`."""
+    return _parse(text, lean=True)
+
+
+def parse_with_lark(text: str) -> n.Node:
+    """:func:`parse` with lark's own parser loop instead of the lean driver: the same answer,
+    slower; the oracle the driver is tested against."""
+    return _parse(text, lean=False)
+
+
+def _parse(text: str, lean: bool) -> n.Node:
     if not isinstance(text, str):
         raise SyntaxProblem(f"expression must be text, not {type(text).__name__}")
     if len(text) > MAX_LENGTH:
@@ -263,22 +306,29 @@ def parse(text: str) -> n.Node:
                             span=Span(at, at + 1), text=text)
     if not text.strip():
         raise SyntaxProblem("empty expression", span=Span(0, max(1, len(text))), text=text)
-    lark = _lark()
-    _BUILDER.reset()
     try:
-        result = lark.parse(text)
+        tables = _tables() if lean else None
+        result = lalr.run(tables, text, _Builder()) if tables is not None else None
+        if result is None:  # not in the language: let lark say why
+            result = _lark_parse(text)
+    except RexprError as exc:
+        raise _attach(exc, text) from None
+    return result  # type: ignore[return-value]
+
+
+def _lark_parse(text: str) -> object:
+    _LARK_BUILDER.local.builder = _Builder()
+    try:
+        return _lark().parse(text)
     except VisitError as exc:  # an error raised inside a builder callback
         inner = exc.orig_exc
         if isinstance(inner, RexprError):
-            raise _attach(inner, text) from None
+            raise inner from None
         raise
-    except RexprError as exc:
-        raise _attach(exc, text) from None
     except UnexpectedInput as exc:
         raise _syntax_error(exc, text) from None
     finally:
-        _BUILDER.reset()
-    return result
+        _LARK_BUILDER.local.builder = None
 
 
 def _attach(exc: RexprError, text: str) -> RexprError:
