@@ -68,14 +68,24 @@ class CompiledExpression:
 
         return to_sql(self.tree, engine, lowering)  # type: ignore[arg-type]
 
-    def evaluate(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> Evaluation:
-        """Values for every row, with per-row errors (see :class:`Evaluation`)."""
+    def evaluate(self, table: pa.Table | pa.RecordBatch | Mapping[str, Any], backend: str = "auto") -> Evaluation:
+        """Values for every row, with per-row errors (see :class:`Evaluation`).
+
+        ``table`` is an Arrow table or record batch, or NumPy arrays by field name (the forms
+        :mod:`rexpr.backends.numpy_inputs` describes); the numpy backend reads those in place,
+        the other backends get them as an Arrow table."""
         run = self._prepared.get(backend)
         if run is None:
             run = self._prepared[backend] = get_backend(backend)(self.tree)
+        if isinstance(table, Mapping):
+            if backend == "numpy":
+                return run(table)  # type: ignore[arg-type]
+            from rexpr.backends import numpy_inputs
+
+            table = numpy_inputs.to_arrow_table(table, numpy_inputs.fields_of(self.tree))
         return run(_as_table(table))
 
-    def mask(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> pa.BooleanArray:
+    def mask(self, table: pa.Table | pa.RecordBatch | Mapping[str, Any], backend: str = "auto") -> pa.BooleanArray:
         """True where the predicate is true; null and false rows are both dropped by a filter.
         Raises :class:`~rexpr.errors.EvaluationFailed` if any row errors: an error beats a guess."""
         if not self.is_predicate:
@@ -87,6 +97,9 @@ class CompiledExpression:
 
     def filter(self, table: pa.Table | pa.RecordBatch, backend: str = "auto") -> pa.Table:
         """The rows where the predicate is true."""
+        if isinstance(table, Mapping):
+            raise InputProblem("filter returns an Arrow table, so it needs one; for NumPy columns take "
+                               "numpy.asarray(expression.mask(columns)) and index the arrays with it")
         table = _as_table(table)
         return table.filter(self.mask(table, backend))
 
@@ -96,7 +109,8 @@ def _as_table(table: pa.Table | pa.RecordBatch) -> pa.Table:
         return pa.Table.from_batches([table])
     if isinstance(table, pa.Table):
         return table
-    raise InputProblem(f"expected a pyarrow Table or RecordBatch, got {type(table).__name__}")
+    raise InputProblem(f"expected a pyarrow Table or RecordBatch, or a mapping of field name to NumPy array, "
+                       f"got {type(table).__name__}")
 
 
 @lru_cache(maxsize=4096)

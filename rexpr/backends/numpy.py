@@ -1,5 +1,8 @@
 """The NumPy backend: every node becomes values plus a validity mask plus int8 error codes,
-computed column-wise with NumPy kernels and reproducing the reference semantics row for row.
+computed with NumPy kernels and reproducing the reference semantics row for row.
+
+Input is an Arrow table or NumPy arrays (``numpy_inputs``), read once per call; the tree then
+runs over blocks of ``BLOCK_ROWS`` rows, and literals are broadcast views, not full arrays.
 
 A dispatch table keyed by catalogue function id holds one handler per function. Most are
 null-propagating (``_plain``): errors come from the leftmost failing argument, then nulls,
@@ -10,39 +13,56 @@ errors, and ``case``/``coalesce`` evaluate a branch only on the rows that reach 
 
 from __future__ import annotations
 
-import datetime as dt
 from dataclasses import dataclass
 from functools import reduce
-from typing import Callable
+from typing import Callable, Iterator, Mapping
 
 import numpy as np
 import pyarrow as pa
 
+from rexpr.backends import numpy_inputs
 from rexpr.backends.numpy_casts import CASTS
-from rexpr.backends.numpy_columns import DTYPES, TEXT, Col, Ctx, Out, all_valid, first_error, merge_codes
+from rexpr.backends.numpy_columns import DTYPES, TEXT, Col, Ctx, Out, all_valid, constant, first_error, merge_codes
 from rexpr.backends.numpy_numbers import KERNELS as NUMBER_KERNELS
 from rexpr.backends.numpy_text import KERNELS as TEXT_KERNELS
 from rexpr.backends.numpy_text import compare
-from rexpr.errors import InputProblem, NotPushable
+from rexpr.errors import NotPushable
 from rexpr.evaluation import Evaluation
 from rexpr.schema import to_arrow_type
 from rexpr.typed import TCall, TField, TLiteral, Typed, functions_used, walk
 from rexpr.types import DataType, Kind
 
 
-@dataclass(frozen=True)
 class Frame:
-    """The input columns an expression reads, for some subset of the table's rows."""
+    """The input columns an expression reads, for some subset of the table's rows. A subset
+    takes a column from its parent only when a node reads it."""
 
-    columns: dict[tuple[str, ...], Col]
-    rows: int
-    exact_text: bool  # no string anywhere holds U+0000 (see numpy_text)
+    def __init__(self, columns: dict[tuple[str, ...], Col], rows: int, exact_text: bool,
+                 parent: "Frame | None" = None, keep: np.ndarray | None = None) -> None:
+        self._columns = columns
+        self.rows = rows
+        self.exact_text = exact_text  # no string anywhere holds U+0000 (see numpy_text)
+        self._parent, self._keep = parent, keep
+        self._everywhere: np.ndarray | None = None
+
+    def column(self, path: tuple[str, ...]) -> Col:
+        col = self._columns.get(path)
+        if col is None:
+            assert self._parent is not None and self._keep is not None, path
+            col = self._columns[path] = self._parent.column(path).take(self._keep)
+        return col
+
+    @property
+    def everywhere(self) -> np.ndarray:
+        """All rows (a read-only view, no allocation)."""
+        if self._everywhere is None:
+            self._everywhere = constant(True, np.dtype(np.bool_), self.rows)
+        return self._everywhere
 
     def take(self, keep: np.ndarray) -> "Frame":
         if keep.all():
             return self
-        return Frame({path: col.take(keep) for path, col in self.columns.items()}, int(keep.sum()),
-                     self.exact_text)
+        return Frame({}, int(keep.sum()), self.exact_text, self, keep)
 
 
 Handler = Callable[[Frame, TCall], Col]
@@ -52,20 +72,26 @@ def evaluate(frame: Frame, node: Typed) -> Col:
     if isinstance(node, TLiteral):
         return _literal(node, frame.rows)
     if isinstance(node, TField):
-        return frame.columns[node.path]
+        return frame.column(node.path)
     return HANDLERS[node.function](frame, node)
 
 
 def _literal(node: TLiteral, rows: int) -> Col:
+    """A literal as a read-only broadcast view: one value, no per-row memory."""
     kind = node.type.kind
+    dtype = DTYPES[kind]
     if node.value is None:
-        return Col(_blank(kind, rows), np.zeros(rows, bool), None, True)
+        return Col(constant(_blank_value(kind), dtype, rows), constant(False, DTYPES[Kind.BOOL], rows), None, True)
     value = node.value
     if kind is Kind.DATE:
         value = np.datetime64(value, "D")
     elif kind is Kind.TIMESTAMP:
         value = np.datetime64(value, "us")
-    return Col(np.full(rows, value, DTYPES[kind]), None, None, True)
+    return Col(constant(value, dtype, rows), None, None, True)
+
+
+def _blank_value(kind: Kind) -> object:
+    return "" if kind is Kind.STRING else np.zeros((), DTYPES[kind])[()]
 
 
 def _blank(kind: Kind, rows: int) -> np.ndarray:
@@ -84,9 +110,10 @@ def _plain(kernel: Callable[..., Out]) -> Handler:
 def _apply(kernel: Callable[..., Out], frame: Frame, args: list[Col]) -> Col:
     codes = first_error(args)
     valid = all_valid(args)
-    live = np.ones(frame.rows, bool) if valid is None else valid.copy()
-    if codes is not None:
-        live &= codes == 0
+    if codes is None:
+        live = frame.everywhere if valid is None else valid
+    else:
+        live = codes == 0 if valid is None else valid & (codes == 0)
     cx = Ctx(live, frame.exact_text, tuple(a.constant for a in args))
     values, own = kernel(cx, *(a.values for a in args))
     return Col(values, valid, merge_codes(codes, own))
@@ -107,14 +134,21 @@ def _cast(frame: Frame, node: TCall) -> Col:
 def _truth(cols: list[Col], absorbing: bool) -> Col:
     """``and`` (absorbing False) or ``or`` (absorbing True) over evaluated operands: the
     absorbing value wins over errors and nulls, then the leftmost error, then null."""
-    rows = len(cols[0])
-    hit = reduce(np.logical_or, (c.usable() & (c.values == absorbing) for c in cols), np.zeros(rows, bool))
-    unknown = reduce(np.logical_or, (~c.validity() for c in cols), np.zeros(rows, bool))
+    hit: np.ndarray | None = None  # rows where some operand holds the absorbing value
+    known: np.ndarray | None = None  # rows where every operand is non-null (None: all rows)
+    for c in cols:
+        found = c.values if absorbing else ~c.values
+        if c.valid is not None or c.codes is not None:
+            found = found & c.usable()
+        hit = found if hit is None else hit | found
+        if c.valid is not None:
+            known = c.valid if known is None else known & c.valid
+    assert hit is not None
     codes = first_error(cols)
     if codes is not None:
         codes = np.where(hit, 0, codes).astype(np.int8)
-    values = np.where(hit, absorbing, not absorbing)
-    return Col(values, hit | ~unknown, codes)
+    values = hit if absorbing else ~hit
+    return Col(values, None if known is None else hit | known, codes)
 
 
 def _and(frame: Frame, node: TCall) -> Col:
@@ -187,6 +221,10 @@ def _case(frame: Frame, node: TCall) -> Col:
 
 
 def _coalesce(frame: Frame, node: TCall) -> Col:
+    if all(isinstance(a, (TField, TLiteral)) for a in node.args[1:]):
+        # Fields and literals never raise, so evaluating them on every row and picking is the
+        # same as evaluating them only where the arguments before are null, and cheaper.
+        return _pick_first_set([evaluate(frame, a) for a in node.args])
     out = _Result.blank(node.type.kind, frame.rows)
     pending = np.arange(frame.rows)
     part = frame
@@ -198,6 +236,24 @@ def _coalesce(frame: Frame, node: TCall) -> Col:
         out.put(pending[settled], col.take(settled))
         pending, part = pending[~settled], part.take(~settled)
     return out.col()
+
+
+def _pick_first_set(cols: list[Col]) -> Col:
+    """Row by row, the first column that is not null there (an error counts as set)."""
+    out = cols[-1]
+    for col in reversed(cols[:-1]):
+        if col.valid is None:
+            out = col  # set on every row (a value or an error)
+            continue
+        settled = col.valid if col.codes is None else col.valid | (col.codes != 0)
+        values = np.where(settled, col.values, out.values)
+        valid = None if out.valid is None else settled | out.valid  # where unsettled, the later column's
+        codes = None
+        if col.codes is not None or out.codes is not None:
+            codes = np.where(settled, 0 if col.codes is None else col.codes,
+                             0 if out.codes is None else out.codes).astype(np.int8)
+        out = Col(values, valid, codes)
+    return out
 
 
 # ---------------------------------------------------------------- other special forms
@@ -249,77 +305,72 @@ def _date_part(values: np.ndarray, part: str) -> np.ndarray:
     return (days - months.astype("datetime64[D]")).astype(np.int64) + 1
 
 
-# ---------------------------------------------------------------- Arrow in and out
-_FILLERS: dict[Kind, object] = {
-    Kind.BOOL: False, Kind.INT64: 0, Kind.FLOAT64: 0.0, Kind.STRING: "",
-    Kind.DATE: dt.date(1970, 1, 1), Kind.TIMESTAMP: dt.datetime(1970, 1, 1),
-}
+# ---------------------------------------------------------------- in and out
+# Rows per block: every kernel is row-wise, so the tree runs block by block, and the block's
+# temporaries stay in cache (64K rows of float64 is 512 KiB) instead of streaming through
+# memory once per operator; bench/bench_core.py measures it against whole-array NumPy code.
+BLOCK_ROWS = 65_536
 
 
-def _field_array(table: pa.Table | pa.RecordBatch, path: tuple[str, ...], data_type: DataType) -> pa.Array:
-    column = table.column(path[0])
-    array = column.combine_chunks() if isinstance(column, pa.ChunkedArray) else column
-    for part in path[1:]:
-        array = array.flatten()[array.type.get_field_index(part)]  # flatten ANDs in the struct's nulls
-    if pa.types.is_dictionary(array.type):
-        array = array.dictionary_decode()
-    target = to_arrow_type(data_type)
-    if array.type != target:
-        try:
-            array = array.cast(target)
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
-            raise InputProblem(f"column {'.'.join(path)!r} cannot be read as {data_type.name}: {exc}") from None
-    return array
-
-
-def _has_nul(array: pa.Array) -> bool:
-    """Whether a string array's bytes hold U+0000 (its UTF-8 form is the byte 0, RFC 3629)."""
-    offsets, data = array.buffers()[1], array.buffers()[2]
-    if data is None or len(array) == 0:
-        return False
-    bounds = np.frombuffer(offsets, np.int32)[array.offset:array.offset + len(array) + 1]
-    return not np.frombuffer(data, np.uint8)[bounds[0]:bounds[-1]].all()
-
-
-def _column(array: pa.Array, kind: Kind) -> Col:
-    valid = None
-    if array.null_count:
-        valid = array.is_valid().to_numpy(zero_copy_only=False)
-        array = array.fill_null(pa.scalar(_FILLERS[kind], type=array.type))
-    values = array.to_numpy(zero_copy_only=False)  # no copy for numbers and timestamps without nulls
-    if kind is Kind.STRING:
-        values = values.astype(TEXT)
-    return Col(values, valid)
-
-
-def _to_evaluation(data_type: DataType, col: Col) -> Evaluation:
+def _to_arrow(kind: Kind, col: Col) -> pa.Array:
+    """An evaluated column as an Arrow array; failed rows are null. Fixed-width buffers are built
+    directly, which is much cheaper than ``pyarrow.array`` with a mask."""
     rows = len(col)
-    if data_type.kind is Kind.NULL:
-        return Evaluation.from_codes(data_type, pa.nulls(rows), col.codes)
-    missing = ~col.validity() | col.failed()
-    array = pa.array(col.values, type=to_arrow_type(data_type), mask=missing if missing.any() else None)
-    return Evaluation.from_codes(data_type, array, col.codes)
+    if kind is Kind.NULL:
+        return pa.nulls(rows)
+    valid = col.valid
+    if col.codes is not None:
+        valid = (col.codes == 0) if valid is None else valid & (col.codes == 0)
+    values = col.values.astype(DTYPES[kind], copy=False)  # a no-op for every kernel's output
+    arrow_type = to_arrow_type(DataType(kind))
+    if kind is Kind.STRING:
+        return pa.array(values, type=arrow_type, mask=None if valid is None else ~valid)
+    if kind is Kind.BOOL:
+        data = np.packbits(values, bitorder="little")  # Arrow bitmaps are least significant bit first
+    elif kind is Kind.DATE:
+        data = values.view(np.int64).astype(np.int32)  # date32: days since the epoch
+    else:  # int64, float64, timestamp[us] (int64 microseconds): the same bytes
+        data = np.ascontiguousarray(values).view(np.int64 if kind is Kind.TIMESTAMP else values.dtype)
+    bitmap = None if valid is None else pa.py_buffer(np.packbits(valid, bitorder="little"))
+    return pa.Array.from_buffers(arrow_type, rows, [bitmap, pa.py_buffer(data)])
 
 
-def prepare(node: Typed) -> Callable[[pa.Table | pa.RecordBatch], Evaluation]:
+def _blocks(inputs: numpy_inputs.Inputs, exact_text: bool) -> Iterator[Frame]:
+    """The input in blocks; each block takes NumPy's string kernels unless one of its own
+    strings holds U+0000 (checking block by block is also cheaper, the strings being in cache)."""
+    for start in range(0, max(inputs.rows, 1), BLOCK_ROWS):
+        part = slice(start, min(start + BLOCK_ROWS, inputs.rows))
+        columns = inputs.columns if inputs.rows <= BLOCK_ROWS else \
+            {path: col.slice(part) for path, col in inputs.columns.items()}
+        exact = exact_text and not any(numpy_inputs.holds_nul(columns[p].values) for p in inputs.unchecked)
+        yield Frame(columns, part.stop - part.start, exact)
+
+
+Input = pa.Table | pa.RecordBatch | Mapping[str, object]
+
+
+def prepare(node: Typed) -> Callable[[Input], Evaluation]:
     missing = sorted(set(functions_used(node)) - set(HANDLERS))
     if missing:
         raise NotPushable(f"the numpy backend has no kernel for {', '.join(missing)}")
-    fields = [(f.path, f.type) for f in _distinct_fields(node)]
+    fields = numpy_inputs.fields_of(node)
     literal_nul = any(isinstance(n, TLiteral) and isinstance(n.value, str) and "\x00" in n.value for n in walk(node))
+    kind = node.type.kind
 
-    def run(table: pa.Table | pa.RecordBatch) -> Evaluation:
-        arrays = {path: (_field_array(table, path, data_type), data_type.kind) for path, data_type in fields}
-        exact_text = not literal_nul and not any(kind is Kind.STRING and _has_nul(a) for a, kind in arrays.values())
-        columns = {path: _column(a, kind) for path, (a, kind) in arrays.items()}
-        return _to_evaluation(node.type, evaluate(Frame(columns, table.num_rows, exact_text), node))
+    def run(data: Input) -> Evaluation:
+        """Values of the expression over an Arrow table or record batch, or over NumPy arrays
+        (see :mod:`rexpr.backends.numpy_inputs` for the accepted forms)."""
+        inputs = numpy_inputs.read(data, fields)
+        values, codes = [], []
+        for frame in _blocks(inputs, inputs.nul_free and not literal_nul):
+            col = evaluate(frame, node)
+            values.append(_to_arrow(kind, col))
+            codes.append(col.codes)
+        if len(values) == 1:
+            return Evaluation.from_codes(node.type, values[0], codes[0])
+        all_codes = None
+        if any(c is not None for c in codes):
+            all_codes = np.concatenate([np.zeros(len(v), np.int8) if c is None else c for v, c in zip(values, codes)])
+        return Evaluation.from_codes(node.type, pa.concat_arrays(values), all_codes)
 
     return run
-
-
-def _distinct_fields(node: Typed) -> list[TField]:
-    by_path: dict[tuple[str, ...], TField] = {}
-    for item in walk(node):
-        if isinstance(item, TField):
-            by_path.setdefault(item.path, item)
-    return list(by_path.values())

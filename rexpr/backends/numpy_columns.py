@@ -21,6 +21,15 @@ DTYPES: dict[Kind, np.dtype] = {
     Kind.NULL: np.dtype(np.bool_),
 }
 
+_BOOL = np.dtype(np.bool_)
+
+
+def constant(value: object, dtype: np.dtype, rows: int) -> np.ndarray:
+    """``value`` on every row as a read-only broadcast view (no per-row memory); kernels only
+    read their inputs, so a literal never needs a full array."""
+    return np.broadcast_to(np.asarray(value, dtype), (rows,))
+
+
 Codes = np.ndarray | None  # int8 error codes (0: no error), None when no row failed
 Out = tuple[np.ndarray, Codes]  # what a kernel returns: values and its own errors
 
@@ -29,7 +38,8 @@ Out = tuple[np.ndarray, Codes]  # what a kernel returns: values and its own erro
 class Col:
     """An evaluated node. A row is an error where ``codes`` is non-zero, else null where
     ``valid`` is false, else ``values``. Values of null and error rows are arbitrary but harmless.
-    ``constant`` marks a broadcast literal, so kernels can pick a fast path once."""
+    ``constant`` marks a broadcast literal, so kernels can pick a fast path once.
+    Arrays are shared between columns and may be read-only views: nothing writes into them."""
 
     values: np.ndarray
     valid: np.ndarray | None = None
@@ -40,14 +50,19 @@ class Col:
         return len(self.values)
 
     def validity(self) -> np.ndarray:
-        return np.ones(len(self), bool) if self.valid is None else self.valid
+        return constant(True, _BOOL, len(self)) if self.valid is None else self.valid
 
     def failed(self) -> np.ndarray:
-        return np.zeros(len(self), bool) if self.codes is None else self.codes != 0
+        return constant(False, _BOOL, len(self)) if self.codes is None else self.codes != 0
 
     def usable(self) -> np.ndarray:
         """Rows holding a value: not null and not an error."""
         return self.validity() & ~self.failed()
+
+    def slice(self, rows: slice) -> "Col":
+        """Rows ``rows.start`` to ``rows.stop`` as views (no copy)."""
+        return Col(self.values[rows], None if self.valid is None else self.valid[rows],
+                   None if self.codes is None else self.codes[rows], self.constant)
 
     def take(self, rows: np.ndarray) -> "Col":
         return Col(self.values[rows], None if self.valid is None else self.valid[rows],
@@ -72,7 +87,7 @@ def first_error(cols: Iterable[Col]) -> Codes:
     for col in cols:
         if col.codes is None:
             continue
-        codes = col.codes.copy() if codes is None else np.where(codes != 0, codes, col.codes)
+        codes = col.codes if codes is None else np.where(codes != 0, codes, col.codes)
     return codes
 
 
@@ -80,7 +95,7 @@ def all_valid(cols: Iterable[Col]) -> np.ndarray | None:
     valid: np.ndarray | None = None
     for col in cols:
         if col.valid is not None:
-            valid = col.valid.copy() if valid is None else valid & col.valid
+            valid = col.valid if valid is None else valid & col.valid
     return valid
 
 

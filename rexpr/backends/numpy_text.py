@@ -147,6 +147,8 @@ def _trimmer(name: str):
 def substring(cx: Ctx, s: np.ndarray, start: np.ndarray, length: np.ndarray | None = None) -> Out:
     """ISO/IEC 9075-2 6.30: positions before 1 exist but are empty; the int64 index arithmetic is
     done without overflow, then clipped to the string."""
+    if cx.exact_text and cx.is_constant(1) and (length is None or cx.is_constant(2)):
+        return _substring_constant(cx, s, int(start[0]), None if length is None else int(length[0]))
     size = lengths(cx, s)
     first = np.minimum(np.maximum(start, 1) - 1, size)
     if length is None:
@@ -161,6 +163,19 @@ def substring(cx: Ctx, s: np.ndarray, start: np.ndarray, length: np.ndarray | No
         return np.strings.slice(s, first, np.maximum(last, first)), codes
     values, _ = rowwise(lambda x, b, e: x[b:e], cx, TEXT, s, first, np.maximum(last, first))
     return values, codes
+
+
+def _substring_constant(cx: Ctx, s: np.ndarray, start: int, length: int | None) -> Out:
+    """The same rule with literal positions, worked out once in Python's unbounded ints. A
+    slice [first, last) with 0 <= first clips to each string by itself (Python slicing), so
+    no per-row lengths are needed."""
+    first = max(start, 1) - 1
+    if length is None:
+        return np.strings.slice(s, first, None), None
+    if length < 0:
+        return np.full(len(s), "", TEXT), faults(cx.live, (cx.live, E.INVALID_ARGUMENT))
+    last = min(max(max(start + length, 1) - 1, first), INT64_MAX)
+    return np.strings.slice(s, min(first, INT64_MAX), last), None
 
 
 def upper(cx: Ctx, s: np.ndarray) -> Out:
