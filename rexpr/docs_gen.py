@@ -158,6 +158,10 @@ How errors combine, and why:
 - **`||` is null with a null operand; `concat` skips nulls.** `'a' || null` is null (ISO/IEC
   9075-2 6.31 <concatenation>); `concat('a', null, 'b')` is `'ab'` and `concat` is never null
   (common practice, no source).
+- **Dates and timestamps lie in years 0001 to 9999** (ISO/IEC 9075-2 4.6.2). Arrow's date32 and
+  timestamp types hold far more; an input column holding a value outside that range is refused
+  before evaluation (`temporal_out_of_range`, naming the field and row) on every backend, since
+  each would print or compare it differently.
 
 ## Comparing results
 

@@ -30,6 +30,7 @@ from rexpr.errors import EvaluationFailed, InputProblem
 from rexpr.evaluation import ERROR_CODES, Evaluation
 from rexpr.folding import fold_constants
 from rexpr.schema import to_arrow_type
+from rexpr.temporal_range import check_temporal_range, temporal_fields
 from rexpr.typed import TField, TLiteral, Typed
 from rexpr.types import Kind
 
@@ -393,6 +394,7 @@ def filter_table(compiled: object, table: pa.Table | pa.RecordBatch, block_rows:
     prepared = prepare(_tree(compiled), block_rows)
     if isinstance(table, pa.RecordBatch):
         table = pa.Table.from_batches([table])
+    check_temporal_range(table, temporal_fields(prepared.node))
     return table.filter(pa.array(prepared.keep(table)))
 
 
@@ -404,8 +406,10 @@ def filter_batches(compiled: object, batches: Iterable[pa.RecordBatch],
     counted across the whole stream."""
     prepared = prepare(_tree(compiled), block_rows)
     _require_predicate(prepared.node)
+    temporal = temporal_fields(prepared.node)
     seen = 0
     for batch in batches:
+        check_temporal_range(batch, temporal)
         keep = prepared.keep(batch, first_row=seen)
         seen += batch.num_rows
         if keep.any():
