@@ -14,6 +14,7 @@ import pytest
 
 from rexpr.engines import ENGINE_NAMES, get_engine
 from rexpr.engines.base import Runner
+from rexpr.typed import Typed
 
 SERVER_ENGINES = ("postgres", "mariadb")
 REQUIRE_VARIABLE = "REXPR_REQUIRE_SERVERS"
@@ -50,3 +51,93 @@ def runner(request: pytest.FixtureRequest) -> Iterator[Runner]:
         yield opened
     finally:
         opened.close()
+
+
+# ------------------------------------------------------------------------------ deep nesting
+# The parser takes expressions 200 levels deep (rexpr/language/parser.py); each shape nests one
+# call per level over the fields a (int64), x (float64), s (string) and f (bool). The limits are
+# this project's (common practice, no source): SQL is either produced, and then runs, or refused
+# with NotPushable, never a RecursionError or a hang.
+DEEP_SHAPES = {
+    "abs": lambda n: "abs(" * n + "a" + ")" * n,
+    "floor": lambda n: "floor(" * n + "x" + ")" * n,
+    "trim": lambda n: "trim(" * n + "s" + ")" * n,
+    "not": lambda n: "not " * n + "f",
+    "coalesce": lambda n: "coalesce(" * n + "a" + ", 1)" * n,
+    "case": lambda n: "case when f then " * n + "a" + " else 0 end" * n,
+    "substring": lambda n: "substring(" * n + "s" + ", 1, 2)" * n,
+    "ln": lambda n: "ln(" * n + "x" + ")" * n,
+    "power": lambda n: "power(" * n + "x" + ", 1.0)" * n,
+}
+
+
+def deepest_lowered(shape: str, schema: object, engine: str) -> Typed:
+    """The deepest nesting of ``shape`` that ``engine``'s faithful lowering still produces; a
+    refusal on the way must say why (too deep, or too large after its guards)."""
+    import rexpr
+    from rexpr.errors import NotPushable
+    from rexpr.sql.lowering import to_sql
+
+    deepest = None
+    for depth in range(1, 200):
+        tree = rexpr.compile(DEEP_SHAPES[shape](depth), schema).tree
+        try:
+            to_sql(tree, engine)
+        except NotPushable as refusal:
+            assert "calls deep" in refusal.message or "nodes after its guards" in refusal.message
+            break
+        deepest = tree
+    assert deepest is not None
+    return deepest
+
+
+# ------------------------------------------------------------------------------ an error beside a null
+# docs/semantics.md, "Errors are values": a function's argument errors propagate before nulls
+# are considered, so a null operand never hides another operand's error. The first three are
+# the differential tester's repros (DuckDB folded each to NULL; PostgreSQL's planner folds a
+# strict operator with a NULL constant operand the same way). Error classes by the standard:
+# abs(-2^63) has no int64 value (ISO/IEC 9075-2 6.28, 22003), a negative substring length is
+# 22011 (6.30), ln(0) is 2201E (6.28), 'abc' as a timestamp 22007 (6.13).
+NULL_BESIDE_ERROR = [
+    ("cast(null as int64) >= abs(-9223372036854775808)", {}, "out_of_range"),
+    ("cast(null as string) <= substring('', 0, -1)", {}, "invalid_argument"),
+    ("cast(null as float64) * ln(0.0)", {}, "invalid_argument"),
+    ("cast(null as int64) >= abs(a)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("abs(a) >= cast(null as int64)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("(a + cast(null as int64)) * abs(a) > 0", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("nullif(1, 1) < abs(a)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("cast(null as string) || substring(s, 1, a)", {"s": ("string", ["x"]), "a": ("int64", [-1])},
+     "invalid_argument"),
+    ("position(cast(null as string), cast(abs(a) as string))", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("cast(null as int64) in (abs(a), 1)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("abs(a) in (cast(null as int64))", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("abs(a) between cast(null as int64) and cast(null as int64)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("nullif(cast(null as int64), abs(a))", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("case when true then null else a end < abs(a)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("abs(a) + case when f then cast(null as int64) end > 0", {"a": ("int64", [-2 ** 63]), "f": ("bool", [True])},
+     "out_of_range"),
+    # Null on every row of the statement, but not constant: DuckDB skips the later operands of a
+    # strict function when an earlier one is a constant NULL vector at run time.
+    ("(case when f then a end) = abs(a)", {"a": ("int64", [-2 ** 63]), "f": ("bool", [False])}, "out_of_range"),
+    ("(case when f then x end) * ln(x)", {"x": ("float64", [0.0]), "f": ("bool", [False])}, "invalid_argument"),
+    ("(case when f then a end) in (abs(a))", {"a": ("int64", [-2 ** 63]), "f": ("bool", [False])}, "out_of_range"),
+    # DuckDB folds what consumes a value from its statistics (x IS NULL, x > 3, coalesce) without
+    # evaluating it; here each value raises in a CASE condition while its branches say "null"
+    # or "5" (the column ts is null on every row of the table).
+    ("nullif(ts, cast(s as timestamp)) is null", {"ts": ("timestamp", [None]), "s": ("string", ["abc"])},
+     "invalid_datetime"),
+    ("(cast(null as int64) >= abs(a)) is null", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("coalesce(case when abs(a) > 0 then cast(null as int64) end, 1)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("(case when abs(a) > 0 then 5 else 5 end) > 3", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    ("cast(nullif(ts, cast(s as timestamp)) as string) = 'x'", {"ts": ("timestamp", [None]), "s": ("string", ["abc"])},
+     "invalid_datetime"),
+    # The tester's 64-row case, reduced: on the one row where ts is null, cast(s as timestamp)
+    # must still raise (ISO/IEC 9075-2 6.13: 'abc' is no timestamp, 22007).
+    ("coalesce(ts, case when f then ts end) in (nullif(ts, nullif(cast(s as timestamp), "
+     "timestamp '9999-12-31 23:59:59')), timestamp '5928-09-17 20:19:27')",
+     {"ts": ("timestamp", [None]), "f": ("bool", [False]), "s": ("string", ["abc"])}, "invalid_datetime"),
+    # Also checked on the servers, whose planners fold strict calls on a NULL constant.
+    ('(a + cast(null as int64)) >= abs(a)', {'a': ('int64', [-9223372036854775808])}, 'out_of_range'),
+    ('cast(null as string) <= substring(s, 1, a)', {'s': ('string', ['']), 'a': ('int64', [-1])}, 'invalid_argument'),
+    ('cast(null as float64) * ln(x)', {'x': ('float64', [0.0])}, 'invalid_argument'),
+]

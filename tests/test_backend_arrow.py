@@ -355,6 +355,53 @@ def test_int64_overflow_is_exact():
             assert same_result(expected, value), (text, x, y)
 
 
+def iso_substring(text: str, start: int, length: int | None) -> object:
+    """ISO/IEC 9075-2 6.30 <string value function>, general rules for <character substring
+    function>, in Python's unbounded integers: E = S + L (no L: past the end); L < 0 is
+    exception 22011; if S > the length of C or E < 1 the result is empty; otherwise the
+    characters from max(S, 1) up to, not including, min(E, length + 1)."""
+    if length is not None and length < 0:
+        return RowError(ErrorClass.INVALID_ARGUMENT)
+    end = len(text) + 1 if length is None else start + length
+    if start > len(text) or end < 1:
+        return ""
+    return text[max(start, 1) - 1:min(end, len(text) + 1) - 1]
+
+
+SUBSTRING_TEXTS = ["", "a", "abc", "日本語x"]
+SUBSTRING_STARTS = [-2 ** 63, -2 ** 63 + 1, -3, -1, 0, 1, 2, 3, 4, 5, 2 ** 63 - 2, 2 ** 63 - 1]
+SUBSTRING_LENGTHS = [0, 1, 2, 3, 4, 2 ** 63 - 2, 2 ** 63 - 1, -1, -2 ** 63]
+
+
+@pytest.mark.parametrize("text", ["substring(s, a, b)", "substring(s, a)", "substring(s, -9223372036854775808, b)",
+                                  "substring(s, a, 0)", "substring(s, 9223372036854775807, b)"])
+def test_substring_follows_the_standard_at_the_int64_bounds(text: str):
+    # Source: ISO/IEC 9075-2 6.30 (iso_substring above), on start and length values at and
+    # next to the int64 bounds, where S + L and E - 1 leave int64 if computed naively.
+    rows = [(c, s, n) for c in SUBSTRING_TEXTS for s in SUBSTRING_STARTS for n in SUBSTRING_LENGTHS]
+    table = pa.table({"s": [r[0] for r in rows], "a": pa.array([r[1] for r in rows], pa.int64()),
+                      "b": pa.array([r[2] for r in rows], pa.int64())})
+    compiled = rexpr.compile(text, {"s": "string", "a": "int64", "b": "int64"})
+    observed = compiled.evaluate(table, backend="arrow").to_pylist()
+    literal_start = {"-9223372036854775808": -2 ** 63, "9223372036854775807": 2 ** 63 - 1}
+    wrong = []
+    for (c, s, n), got in zip(rows, observed):
+        start = next((v for k, v in literal_start.items() if k in text), s)
+        length = None if text == "substring(s, a)" else 0 if text.endswith(", 0)") else n
+        expected = iso_substring(c, start, length)
+        if not same_result(expected, got):
+            wrong.append((c, start, length, show_value(expected), show_value(got)))
+    assert wrong == []
+
+
+def test_substring_with_a_computed_length_at_the_lowest_start():
+    # The repro from the differential tester: position('a', '') is 0 (ISO/IEC 9075-2 6.33
+    # <position expression>: a search string that does not occur gives 0), so by 6.30 the
+    # result is the empty string (E = -2^63 + 0 < 1), not 'a'.
+    compiled = rexpr.compile("substring('a', -9223372036854775808, position('a', ''))", {"z": "int64"})
+    assert compiled.evaluate(pa.table({"z": [1]}), backend="arrow").to_pylist() == [""]
+
+
 def test_string_to_date_matches_the_proleptic_gregorian_calendar():
     # Source: Python's datetime (proleptic Gregorian calendar, years 1 to 9999) for every day
     # of a sample of years, and the invalid days around them.

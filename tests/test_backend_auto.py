@@ -157,6 +157,28 @@ def test_float_to_int_rounds_half_away_at_the_int64_edges():
     assert _mismatches("cast(x as int64) > 0 or x > 0.0", table, schema, block_rows=4) == []
 
 
+def test_substring_at_the_int64_bounds():
+    # Source: ISO/IEC 9075-2 6.30 <character substring function> (E = S + L; L < 0 is 22011;
+    # S > length or E < 1 gives the empty string), worked out in Python's unbounded ints.
+    def iso(text: str, start: int, length: int) -> object:
+        if length < 0:
+            return "invalid_argument"
+        end = start + length
+        return "" if start > len(text) or end < 1 else text[max(start, 1) - 1:min(end, len(text) + 1) - 1]
+
+    bounds = [-2 ** 63, -2 ** 63 + 1, -1, 0, 1, 2, 3, 2 ** 63 - 2, 2 ** 63 - 1]
+    rows = [(c, s, n) for c in ("", "ab", "日本語") for s in bounds for n in bounds]
+    table = pa.table({"s": [r[0] for r in rows], "a": pa.array([r[1] for r in rows], pa.int64()),
+                      "b": pa.array([r[2] for r in rows], pa.int64())})
+    for text in ("substring(s, a, b)", "substring(s, a, b) || s"):
+        result = rexpr.compile(text, {"s": "string", "a": "int64", "b": "int64"}).evaluate(table, backend="auto")
+        got = [v.error.value if hasattr(v, "error") else v for v in result.to_pylist()]
+        want = [iso(*r) for r in rows]
+        if text.endswith("|| s"):
+            want = [w if w == "invalid_argument" else w + r[0] for w, r in zip(want, rows)]
+        assert [(r, w, g) for r, w, g in zip(rows, want, got) if w != g] == []
+
+
 def test_narrow_and_dictionary_inputs():
     table = pa.table({"a": pa.array([1, None, -7], pa.int8()), "x": pa.array([1.5, None, -0.5], pa.float32()),
                       "s": pa.array(["b", None, "b"]).dictionary_encode()})

@@ -810,9 +810,11 @@ def _substring_rows(args: list[pa.Array]) -> tuple[pa.Array, Codes | None]:
         length = _numbers(args[2])
         negative = valid & (length < 0)
         room = np.maximum(length, 0)
-        with np.errstate(over="ignore"):
-            end = np.where(start > INT64_MAX - room, INT64_MAX, start + room) - 1
-        end = np.clip(end, begin, chars)
+        # ISO/IEC 9075-2 6.30: the end is E = S + L, exclusive. Saturate E at INT64_MAX (past it
+        # is "to the end") and floor it at 1 before the 1-based to 0-based step, so no int64
+        # arithmetic here can wrap around (S = -2^63 with L = 0 once gave E - 1 = INT64_MAX).
+        end = np.minimum(start, INT64_MAX - room) + room
+        end = np.clip(np.maximum(end, 1) - 1, begin, chars)
     else:
         end = chars
     starts = np.append(np.flatnonzero((data & 0xC0) != 0x80), len(data))

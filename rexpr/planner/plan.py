@@ -103,6 +103,17 @@ def _not_false(node: Typed) -> Typed:
                  BOOL.with_nullable(False), node.span)
 
 
+def _assemble(decisions: list[Conjunct], source: str) -> tuple[list[Conjunct], Typed | None, Typed | None]:
+    """(decisions as reported, the pushed tree, the residual tree)."""
+    widen = any(raise_reason(d.tree) for d in decisions if not d.pushed)
+    if widen:
+        decisions = [_widen(d, source) if d.pushed and d.tree.type.nullable else d for d in decisions]
+    widened = [widen and d.pushed and d.tree.type.nullable for d in decisions]
+    pushed_parts = [_not_false(d.tree) if w else d.tree for d, w in zip(decisions, widened) if d.pushed]
+    kept = [d.tree for d, w in zip(decisions, widened) if not d.pushed or w]
+    return decisions, _and_of(pushed_parts), _and_of(kept)
+
+
 def _check_source(source: str) -> None:
     if source not in SOURCES:
         import difflib
@@ -165,14 +176,24 @@ def plan(expression: str, schema: SchemaLike, source: str, columns: Sequence[str
     for part in parts:
         pushed, reason, sql = _try_push(part, source, evidence, alone=len(parts) == 1)
         decisions.append(Conjunct(to_text(part), pushed, reason, part, sql))
-    widen = any(raise_reason(d.tree) for d in decisions if not d.pushed)
-    if widen:
-        decisions = [_widen(d, source) if d.pushed and d.tree.type.nullable else d for d in decisions]
-    widened = [widen and d.pushed and d.tree.type.nullable for d in decisions]
-    pushed_parts = [_not_false(d.tree) if w else d.tree for d, w in zip(decisions, widened) if d.pushed]
-    kept = [d.tree for d, w in zip(decisions, widened) if not d.pushed or w]
-    pushed_tree = _and_of(pushed_parts)
-    residual = _and_of(kept)
+    while True:
+        final, pushed_tree, residual = _assemble(decisions, source)
+        pushed_sql = pushed_sqlglot = dataset_filter = None
+        if pushed_tree is None or source == DATASET_SOURCE:
+            break
+        from rexpr.sql.lowering import call_depth, lower, to_sql
+
+        try:
+            pushed_sqlglot = lower(pushed_tree, source, "faithful")
+            pushed_sql = to_sql(pushed_tree, source, "faithful")
+            break
+        except NotPushable as exc:
+            # Each conjunct lowered alone, but their conjunction nests deeper (or grows larger)
+            # than any of them: keep the deepest one local and try again.
+            deepest = max((d for d in decisions if d.pushed), key=lambda d: call_depth(d.tree))
+            why = f"kept local: together with the other pushed conjuncts it is not pushable: {exc.message}"
+            decisions = [Conjunct(d.text, False, why, d.tree) if d is deepest else d for d in decisions]
+    decisions = final
     if isinstance(residual, TLiteral) and residual.value is True:
         residual = None
     wanted = list(columns) if columns is not None else compiled.schema.names
@@ -184,16 +205,9 @@ def plan(expression: str, schema: SchemaLike, source: str, columns: Sequence[str
         for path in fields_read(residual):
             if path[0] not in needed:
                 needed.setdefault(".".join(path), None)
-    pushed_sql = pushed_sqlglot = dataset_filter = None
-    if pushed_tree is not None:
-        if source == DATASET_SOURCE:
-            from rexpr.backends.arrow import to_dataset_expression
+    if pushed_tree is not None and source == DATASET_SOURCE:
+        from rexpr.backends.arrow import to_dataset_expression
 
-            dataset_filter = to_dataset_expression(pushed_tree)
-        else:
-            from rexpr.sql.lowering import lower, to_sql
-
-            pushed_sqlglot = lower(pushed_tree, source, "faithful")
-            pushed_sql = to_sql(pushed_tree, source, "faithful")
+        dataset_filter = to_dataset_expression(pushed_tree)
     return Plan(expression, source, tuple(decisions), pushed_tree, pushed_sql, residual, tuple(needed),
                 pushed_sqlglot, dataset_filter, evidence.source)

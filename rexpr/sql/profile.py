@@ -74,3 +74,6 @@ class DialectProfile:
     # For the planner: why this call's faithful SQL holds only for some data values (which no
     # typed tree can prove), or None. Such calls are never pushed into a filter.
     data_dependent: Callable[[TCall], str | None] | None = None
+    # Why the engine's own SQL parser refuses this statement text (a limit no nesting depth
+    # expresses, such as a fixed parser stack), or None when it takes it.
+    parse_problem: Callable[[str], str | None] | None = None

@@ -23,6 +23,16 @@ What the faithful lowering works around, each measured on DuckDB v2.0.1:
   raise construct is a cast of a constant string (not ``error()``). DuckDB's constant folding
   leaves a constant that fails to fold for run time, so an untaken raise never fires.
 
+* Null operands: the optimizer folds a strict operator or function with a NULL constant (or
+  all-null CASE) operand to NULL, and at run time skips the later operands once an earlier one
+  is a constant NULL vector; both drop an error the reference gives. A strict call whose
+  operand can raise while another can be null tests every operand for null first
+  (``greatest``, which evaluates them all).
+* Statistics: ``x IS NULL``, comparisons and ``coalesce`` are folded from what DuckDB knows of
+  x's values, without evaluating x. A null test of an x that can raise is written
+  ``x IS NOT DISTINCT FROM NULL`` (not folded), and a CASE whose conditions can raise gets a
+  branch no row takes valued with a failing cast, so its statistics are unknown.
+
 Errors are raised as ``CAST('rexpr:<class>' AS <type>)``; DuckDB's message quotes the string
 ("Could not convert string 'rexpr:out_of_range' to INT64"), which the runner reads.
 """
@@ -37,11 +47,13 @@ from sqlglot import exp
 from rexpr.catalogue.model import ErrorClass
 from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
-from rexpr.sql.dialects import _embedded as em, _trees as t
+from rexpr.reference.evaluator import evaluate_row
+from rexpr.sql.dialects import _embedded as em, _null_operands as nn, _trees as t
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
-from rexpr.sql.quoting import Quoting, string_literal
-from rexpr.typed import TCall
+from rexpr.sql.quoting import Quoting, column, string_literal
+from rexpr.typed import TCall, TField, walk
 from rexpr.types import INT64_MAX, INT64_MIN, DataType, Kind
+from rexpr.values import RowError
 
 D = "duckdb"
 Tree = t.Tree
@@ -86,6 +98,17 @@ def is_raise(node: exp.Expression) -> bool:
     return (isinstance(inner, exp.Literal) and inner.is_string and str(inner.this).startswith(TAG))
 
 
+UNREACHABLE = "rexpr-unreachable"
+
+
+def unreachable(kind: Kind) -> Tree:
+    """A value of ``kind`` for a CASE branch no row takes: a failing cast like the raise
+    construct, whose statistics DuckDB cannot know. Its text is no error class, so were it
+    ever evaluated the statement would fail loudly rather than give a wrong answer."""
+    text = t.string(UNREACHABLE)
+    return cast(cast(text, I), S) if kind in (S, Kind.NULL) else cast(text, kind)
+
+
 def literal(value: object, data_type: DataType) -> Tree:
     kind = data_type.kind
     if value is None:
@@ -106,23 +129,117 @@ def literal(value: object, data_type: DataType) -> Tree:
     raise NotPushable(f"no DuckDB literal for {data_type.name}")
 
 
+def is_null(x: Tree) -> Tree:
+    """``x IS NULL``, and for an ``x`` that can raise ``x IS NOT DISTINCT FROM NULL``: DuckDB
+    replaces ``x IS NULL`` by a constant when its statistics say x is always (or never) null,
+    without evaluating x, so an error raised inside x (in a CASE condition, say) is lost. The
+    null-safe comparison is not folded (measured on v2.0.1; see _null_operands)."""
+    if not em.may_raise(x, ENGINE):
+        return t.is_null(x)
+    return exp.NullSafeEQ(this=t.paren(x), expression=exp.Null())
+
+
 def compare(op: str, kind: Kind, a: Tree, b: Tree) -> Tree:
     """Faithful comparison of two values that are each evaluated in order first."""
     plain = t.COMPARE[op](a, b)
     if kind is not F:
         return plain
     nan = t.or_(t.call("isnan", a), t.call("isnan", b))
-    return t.case((t.call("greatest", t.is_null(a), t.is_null(b)), t.null()),
+    return t.case((t.call("greatest", is_null(a), is_null(b)), t.null()),
                   (nan, t.boolean(op == "ne")), default=plain)
+
+
+def _compare_in_list(op: str, kind: Kind, a: Tree, b: Tree) -> Tree:
+    """:func:`compare` for ``in`` and ``between``, whose comparisons take the arguments as
+    they are: when one side can raise, both sides are tested for null first, because DuckDB
+    skips the other side of a comparison with a null one (see _null_operands)."""
+    tree = compare(op, kind, a, b)
+    if kind is F or not (_risky(a) or _risky(b)):
+        return tree  # the float comparison already starts with that test
+    return t.case((t.call("greatest", is_null(a), is_null(b)), t.null()), default=tree)
 
 
 ENGINE = em.Engine(D, raise_, is_raise, typed_null, i8, "greatest",
                    int_div=lambda a, b: exp.IntDiv(this=t.paren(a), expression=t.paren(b)),
-                   probe=lambda x: t.call("TRY", x), compare=compare)
+                   probe=lambda x: t.call("TRY", x), compare=_compare_in_list, is_null=is_null)
 
 
 def _risky(tree: Tree) -> bool:
     return em.may_raise(tree, ENGINE)
+
+
+# ---------------------------------------------------------------------------------- arguments first
+def _tests_first(tree: Tree, tested: list[Tree]) -> bool:
+    """``tree`` is a CASE whose first condition already tests each of ``tested`` for null
+    (a guard's own null clause), so every argument is evaluated before anything else."""
+    if not isinstance(tree, exp.Case) or not tree.args.get("ifs"):
+        return False
+    condition = tree.args["ifs"][0].this
+    greatest = isinstance(condition, exp.Anonymous) and str(condition.this).lower() == "greatest"
+    tests = condition.expressions if greatest else [condition]
+    seen = [x.this for x in tests if isinstance(x, (exp.Is, exp.NullSafeEQ)) and isinstance(x.expression, exp.Null)]
+    return all(any(s is a or (isinstance(s, exp.Paren) and s.this is a) for s in seen) for a in tested)
+
+
+def _first_column(node: TCall) -> Tree | None:
+    for current in walk(node):
+        if isinstance(current, TField):
+            return column(current.dotted)
+    return None
+
+
+def _statistics_hidden(node: TCall, tree: Tree) -> Tree:
+    """``tree``, a CASE whose conditions can raise, with a last branch no row takes whose value
+    is :func:`unreachable`. DuckDB's statistics of a CASE come from its values only; when they
+    are known it folds what consumes the CASE (``x > 3`` to true from the value range,
+    ``coalesce`` dropping an always-null x) without evaluating the conditions, and their error
+    is lost. ``c IS DISTINCT FROM c`` is false on every row (nulls and NaN included) and,
+    reading a column, is not folded away. A constant CASE that raises is the raise construct."""
+    if not isinstance(tree, exp.Case):
+        return tree
+    col = _first_column(node)
+    if col is None:
+        value = evaluate_row(node, {})
+        return raise_(value.error, node.type.kind) if isinstance(value, RowError) else tree
+    never = exp.NullSafeNEQ(this=col, expression=col.copy())
+    tree.set("ifs", [*tree.args["ifs"], exp.If(this=never, true=unreachable(node.type.kind))])
+    return tree
+
+
+def _arguments_first(lowerer: Lowerer) -> Lowerer:
+    """A strict function whose argument can raise while another can be null evaluates every
+    argument first, in ``greatest(a IS NULL, ...)``: DuckDB otherwise folds the call to NULL
+    (a NULL constant or all-null CASE argument) or skips the later arguments at run time (an
+    earlier argument that is a constant NULL vector), and the error the reference gives is
+    lost. Only later arguments are skipped at run time, so an argument that can be null but
+    comes after the one that can raise counts only when it is always null."""
+    def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
+        tree = lowerer(ctx, node, args)
+        if len(args) < 2:
+            return tree
+        risky = [_risky(a) for a in args]
+        if not any(risky):
+            return tree
+        nullable = [a.type.nullable for a in node.args]
+
+        def exposed(k: int) -> bool:
+            return any(nullable[j] and (j < k or nn.always_null(node.args[j])) for j in range(len(args)) if j != k)
+
+        if not any(risky[k] and exposed(k) for k in range(len(args))):
+            return tree
+        tested = [a for a, r, n in zip(args, risky, nullable) if r or n]
+        test, null = em.any_null(ENGINE, tested), typed_null(node.type.kind)
+        if any(nn.always_null(a) for a in node.args):
+            # Null once the arguments ran; the test is true on every row, so the ELSE is never
+            # taken, and being unreachable() it keeps DuckDB from knowing the result is null.
+            return t.case((test, null), default=unreachable(node.type.kind))
+        if _tests_first(tree, tested):
+            return tree
+        if isinstance(tree, exp.Case) and not any(tree is a for a in args):
+            tree.set("ifs", [exp.If(this=test, true=null), *tree.args["ifs"]])  # same as nesting, shorter
+            return tree
+        return t.case((test, null), default=tree)
+    return lower
 
 
 # ---------------------------------------------------------------------------------- arithmetic
@@ -160,7 +277,7 @@ def _modulo(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     a, b = args
     kind = node.type.kind
     if kind is I and em.literal_of(node.args[1]) == (True, -1):
-        value: Tree = t.case((t.is_null(a), typed_null(I)), default=i8(0))
+        value: Tree = t.case((is_null(a), typed_null(I)), default=i8(0))
     elif kind is I:  # -2^63 % -1 is 0 in the reference; DuckDB computes it through the overflowing quotient
         value = t.mod(a, b) if em.nonzero_literal(node.args[1]) else \
             t.case((t.eq(b, i8(-1)), i8(0)), default=t.mod(a, b))
@@ -241,7 +358,8 @@ def _nullif(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     equal = t.eq(a, b)
     if node.args[0].type.kind is F:
         equal = t.and_(t.not_(t.call("isnan", a)), equal)
-    return t.case((em.any_null(ENGINE, args), a), (equal, typed_null(node.type.kind)), default=a)
+    tree = t.case((em.any_null(ENGINE, args), a), (equal, typed_null(node.type.kind)), default=a)
+    return _statistics_hidden(node, tree) if _risky(b) else tree  # b's error sits in conditions only
 
 
 def _chain(conjunction: bool) -> Lowerer:
@@ -252,7 +370,8 @@ def _chain(conjunction: bool) -> Lowerer:
 
 def _case(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     pairs = [(args[i], args[i + 1]) for i in range(0, len(args) - 1, 2)]
-    return t.case(*pairs, default=args[-1])  # THEN branches run only for the rows that take them
+    tree = t.case(*pairs, default=args[-1])  # THEN branches run only for the rows that take them
+    return _statistics_hidden(node, tree) if any(_risky(c) for c, _ in pairs) else tree
 
 
 def _coalesce(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
@@ -327,7 +446,7 @@ def _string_to_int(x: Tree) -> Tree:
     invalid, out_of_range = em.integer_text_checks(
         s, lambda v, n: t.call("left", v, t.number(n)), lambda v: t.call("substring", v, t.number(2)),
         lambda v: t.call("length", v))
-    return t.case((t.is_null(x), typed_null(I)), (invalid, raise_(ErrorClass.INVALID_CAST, I)),
+    return t.case((is_null(x), typed_null(I)), (invalid, raise_(ErrorClass.INVALID_CAST, I)),
                   (out_of_range, raise_(ErrorClass.OUT_OF_RANGE, I)), default=cast(s, I))
 
 
@@ -335,13 +454,13 @@ def _string_to_float(x: Tree) -> Tree:
     s = _spaces_trimmed(x)
     value = cast(s, F)  # correctly rounded; a finite numeral too large becomes inf, which is an error here
     too_large = t.and_(t.call("isinf", value), t.not_(t.call("contains", t.call("lower", s), t.string("inf"))))
-    return t.case((t.is_null(x), typed_null(F)), (t.not_(_matches(s, _FLOAT_TEXT)), raise_(ErrorClass.INVALID_CAST, F)),
+    return t.case((is_null(x), typed_null(F)), (t.not_(_matches(s, _FLOAT_TEXT)), raise_(ErrorClass.INVALID_CAST, F)),
                   (too_large, raise_(ErrorClass.OUT_OF_RANGE, F)), default=value)
 
 
 def _string_to_bool(x: Tree) -> Tree:
     s = t.call("lower", _spaces_trimmed(x))
-    return t.case((t.is_null(x), typed_null(B)), (t.eq(s, t.string("true")), t.boolean(True)),
+    return t.case((is_null(x), typed_null(B)), (t.eq(s, t.string("true")), t.boolean(True)),
                   (t.eq(s, t.string("false")), t.boolean(False)), default=raise_(ErrorClass.INVALID_CAST, B))
 
 
@@ -349,8 +468,8 @@ def _string_to_date(x: Tree) -> Tree:
     s = _spaces_trimmed(x)
     parsed = exp.TryCast(this=s, to=exp.DataType.build("DATE", dialect=D))
     valid = t.and_(_matches(s, _DATE_TEXT), t.ne(t.call("left", s, t.number(4)), t.string("0000")),
-                   t.not_(t.is_null(parsed)))
-    return t.case((t.is_null(x), typed_null(DATE)), (t.not_(valid), raise_(ErrorClass.INVALID_DATETIME, DATE)),
+                   t.not_(is_null(parsed)))
+    return t.case((is_null(x), typed_null(DATE)), (t.not_(valid), raise_(ErrorClass.INVALID_DATETIME, DATE)),
                   default=parsed)
 
 
@@ -367,15 +486,15 @@ def _string_to_timestamp(x: Tree) -> Tree:
                              t.le(t.call("substring", s, t.number(15), t.number(2)), t.string("59")),
                              t.le(t.call("substring", s, t.number(18), t.number(2)), t.string("59"))))
     valid = t.and_(_matches(s, _TIMESTAMP_TEXT), t.ne(t.call("left", s, t.number(4)), t.string("0000")), fields_ok,
-                   t.not_(t.is_null(parsed)))
-    return t.case((t.is_null(x), typed_null(TS)), (t.not_(valid), raise_(ErrorClass.INVALID_DATETIME, TS)),
+                   t.not_(is_null(parsed)))
+    return t.case((is_null(x), typed_null(TS)), (t.not_(valid), raise_(ErrorClass.INVALID_DATETIME, TS)),
                   default=parsed)
 
 
 def _float_to_int(x: Tree) -> Tree:
     r = t.call("round", x)  # half away from zero on the exact value
     fits = t.and_(t.ge(r, f8(float(INT64_MIN))), t.lt(r, f8(2.0**63)))  # NaN >= ... is true here, NaN < ... false
-    return t.case((t.is_null(x), typed_null(I)), (t.not_(fits), raise_(ErrorClass.OUT_OF_RANGE, I)), default=cast(r, I))
+    return t.case((is_null(x), typed_null(I)), (t.not_(fits), raise_(ErrorClass.OUT_OF_RANGE, I)), default=cast(r, I))
 
 
 def _float_to_string(x: Tree) -> Tree:
@@ -407,7 +526,7 @@ def _cast(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
 
 
 # ---------------------------------------------------------------------------------- tables
-FAITHFUL: dict[str, Lowerer] = {
+_FAITHFUL: dict[str, Lowerer] = {
     "add": _arith("add", t.add),
     "subtract": _arith("subtract", t.sub),
     "multiply": _arith("multiply", t.mul),
@@ -426,7 +545,7 @@ FAITHFUL: dict[str, Lowerer] = {
     "is_nan": _call("isnan"),
     **{op: _compare(op) for op in t.COMPARE},
     "is_distinct_from": lambda ctx, node, args: exp.NullSafeNEQ(this=t.paren(args[0]), expression=t.paren(args[1])),
-    "is_null": lambda ctx, node, args: t.is_null(args[0]),
+    "is_null": lambda ctx, node, args: is_null(args[0]),
     "and": _chain(True),
     "or": _chain(False),
     "not": lambda ctx, node, args: t.not_(args[0]),
@@ -453,6 +572,9 @@ FAITHFUL: dict[str, Lowerer] = {
     "month": _call("month"),
     "day": _call("day"),
 }
+
+FAITHFUL: dict[str, Lowerer] = {fid: _arguments_first(lowerer) if fid in nn.STRICT else lowerer
+                                for fid, lowerer in _FAITHFUL.items()}
 
 _CASE_MAPPING = ("DuckDB's upper/lower use simple one-to-one case mappings (upper('ß') is 'ẞ', lower('ΣΑΣ') "
                  "is 'σασ'); the catalogue uses the full Unicode mappings ('SS', final sigma)")
@@ -496,14 +618,15 @@ NATIVE: dict[str, Lowerer] = {
     "exp": _call("exp"),
     "is_nan": _call("isnan"),
     **{op: (lambda fn: lambda ctx, node, args: fn(*args))(fn) for op, fn in t.COMPARE.items()},
-    "is_distinct_from": FAITHFUL["is_distinct_from"],
-    "is_null": FAITHFUL["is_null"],
+    "is_distinct_from": _FAITHFUL["is_distinct_from"],
+    "is_null": lambda ctx, node, args: t.is_null(args[0]),
     "and": lambda ctx, node, args: t.and_(*args),
     "or": lambda ctx, node, args: t.or_(*args),
-    "not": FAITHFUL["not"],
+    "not": _FAITHFUL["not"],
     "coalesce": _coalesce,
     "nullif": _call("nullif"),
-    "case": _case,
+    "case": lambda ctx, node, args: t.case(*[(args[i], args[i + 1]) for i in range(0, len(args) - 1, 2)],
+                                           default=args[-1]),
     "in": lambda ctx, node, args: t.in_list(args[0], args[1:]),
     "between": lambda ctx, node, args: exp.Between(this=t.paren(args[0]), low=t.paren(args[1]), high=t.paren(args[2])),
     "like": _native_like,
@@ -515,7 +638,7 @@ NATIVE: dict[str, Lowerer] = {
     "lower": _call("lower"),
     "length": _call("length"),
     "octet_length": lambda ctx, node, args: t.call("octet_length", t.call("encode", args[0])),
-    "concat_op": FAITHFUL["concat_op"],
+    "concat_op": _FAITHFUL["concat_op"],
     "concat": _call("concat"),
     "replace": _call("replace"),
     "position": lambda ctx, node, args: t.call("strpos", args[1], args[0]),

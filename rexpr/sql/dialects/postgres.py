@@ -37,6 +37,10 @@ database encoding UTF8, libc locale C.UTF-8, ICU 72):
   (``CASE WHEN x > 0 THEN 1/0 END`` fails while planning). The raise construct therefore
   contains ``random()``, which is volatile and never folded, and constant subtrees are
   lowered to their value, computed by the reference (or to the raise construct).
+* Planning also replaces a strict function with a NULL constant argument by NULL, without
+  evaluating the other arguments (``NULL::bigint >= abs(i)`` never raises). A call that is
+  null on every row while an argument can raise is lowered as "null once every argument ran"
+  (``GREATEST`` of their null tests).
 
 Errors are raised as ``CAST('rexpr:<class>;' || left(random()::text, 0) AS <type>)``: the
 message is ``invalid input syntax for type ...: "rexpr:<class>;"``, which the runner reads
@@ -57,7 +61,7 @@ from rexpr.catalogue.model import ErrorClass
 from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.functions import like_regex
-from rexpr.sql.dialects import _logic, _numeral_text as nt, _pg_numbers as num, _trees as t
+from rexpr.sql.dialects import _logic, _null_operands as nn, _numeral_text as nt, _pg_numbers as num, _trees as t
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.typed import TCall, TLiteral, Typed
 from rexpr.types import DataType, Kind
@@ -503,13 +507,23 @@ def _extract(field: str) -> Lowerer:
 # ---------------------------------------------------------------------------------- tables
 def _guarded(lowerer: Lowerer) -> Lowerer:
     """A constant subtree becomes its value, or the raise construct when the reference says
-    it raises: planning-time folding then has nothing left that could fail."""
+    it raises: planning-time folding then has nothing left that could fail.
+
+    A call that is null on every row while an argument can raise becomes "null once every
+    argument ran": the planner replaces a strict function with a NULL constant argument by
+    NULL without evaluating the others (``NULL::bigint >= abs(i)`` plans as NULL), which
+    would lose the error the reference gives (see _null_operands). GREATEST evaluates each
+    argument, in order, and is not folded."""
     def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
         constant, value = _logic.constant_value(node)
         if constant:
             if isinstance(value, RowError):
                 return raise_(value.error, node.type.kind)
             return literal(value, node.type)
+        if (len(args) > 1 and node.function not in nn.LAZY and any(_logic.may_raise(a, SQL) for a in node.args)
+                and nn.always_null(node)):
+            null = typed_null(node.type.kind)
+            return t.case((t.call("greatest", *[t.is_null(a) for a in args]), null), default=null)
         return lowerer(ctx, node, args)
     return lower
 

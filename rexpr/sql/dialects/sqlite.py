@@ -34,6 +34,8 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import sqlite3
+import threading
 
 from sqlglot import exp
 
@@ -697,6 +699,27 @@ DIVERGENCES: tuple[Divergence, ...] = (
     Divergence("cast", "cast(x as string)", "REAL prints with 15 significant digits", _X, ((0.30000000000000004,),)),
 )
 
+_PARSER = threading.local()
+# What SQLite 3.40 says when a statement is nested deeper than its parser takes.
+_PARSER_LIMITS = ("parser stack overflow", "Expression tree is too large")
+
+
+def parse_problem(text: str) -> str | None:
+    """SQLite's parser stack is fixed (100 entries in 3.40.1: as few as 18 nested CASE or 31
+    nested calls, depending on the shape), so no nesting depth says what it takes: Python's
+    sqlite3, the runners' library, compiles the statement on an empty in-memory database.
+    Names are unknown there, so only a parser limit counts."""
+    connection = getattr(_PARSER, "connection", None)
+    if connection is None:
+        connection = _PARSER.connection = sqlite3.connect(":memory:")
+    try:
+        connection.execute("EXPLAIN " + text)
+    except sqlite3.Error as exc:
+        message = str(exc)
+        return message if any(limit in message for limit in _PARSER_LIMITS) else None
+    return None
+
+
 PROFILE = DialectProfile(
     name="sqlite",
     sqlglot_dialect=D,
@@ -718,4 +741,5 @@ PROFILE = DialectProfile(
     ),
     quoting=QUOTING,
     divergences=DIVERGENCES,
+    parse_problem=parse_problem,
 )
