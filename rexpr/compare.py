@@ -15,17 +15,27 @@ Rules (docs/semantics.md, "Comparing results"):
    canonical Arrow type (an int32 column for an int64 expression is a bug even when every
    value compares equal); SQL engines' values are mapped to it, and what does not map
    losslessly is reported per row (``type_mismatches``).
+8. An engine-limit row (``EngineLimit``: the engine says it cannot represent
+   a value the row reaches) is "not compared, the engine cannot represent the result" only
+   when the reference, on that row, reaches a value of the kind the limit names: a NaN for
+   ``nan``, a NaN or ±inf for ``non_finite`` (IEEE 754 §6.2, §7.4), a text containing U+0000
+   for ``nul``, at the result, an input or any sub-expression (``limit_covered``). Such
+   rows are counted and named in the case's reason, like input losses. A limit where the
+   reference reaches no such value, or an unknown reason, is a disagreement: the engine (or
+   our lowering) failed a row it should have computed. Sub-expressions are evaluated on the
+   whole row, so a limit inside a CASE branch the row does not take still counts as covered.
 """
 
 from __future__ import annotations
 
 import math
 import struct
+from typing import Iterable
 
 from rexpr.evaluation import Evaluation
 from rexpr.schema import to_arrow_type
 from rexpr.types import DataType
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 FLOAT_ULPS = 2
 
@@ -49,7 +59,32 @@ def floats_agree(a: float, b: float, ulps: int = FLOAT_ULPS) -> bool:
     return ulp_distance(a, b) <= ulps
 
 
+def _non_finite(value: object) -> bool:
+    return isinstance(value, float) and not math.isfinite(value)
+
+
+def _nan(value: object) -> bool:
+    return isinstance(value, float) and math.isnan(value)
+
+
+def _has_nul(value: object) -> bool:
+    return isinstance(value, str) and "\x00" in value
+
+
+# Limit reason -> the reference values it covers (rule 8).
+LIMIT_COVERS = {"nan": _nan, "non_finite": _non_finite, "nul": _has_nul}
+
+
+def limit_covered(limit: EngineLimit, reached: Iterable[object]) -> bool:
+    """Rule 8: does one of the values the reference reaches on the row (result, inputs and
+    sub-expressions) explain ``limit``?"""
+    covers = LIMIT_COVERS.get(limit.reason)
+    return covers is not None and any(covers(value) for value in reached)
+
+
 def same_result(expected: object, observed: object) -> bool:
+    if isinstance(expected, EngineLimit) or isinstance(observed, EngineLimit):
+        return False  # rule 8: a limit row is set aside before comparing, never equal to a value
     if expected is None or observed is None:
         return expected is None and observed is None
     if isinstance(expected, RowError) or isinstance(observed, RowError):

@@ -1,7 +1,9 @@
 """Evaluate one compiled expression on a named engine and compare with the reference.
 
 Local backends (reference, arrow, numpy) run in-process; SQL engines go through the SQL
-lowering and the engine runners. Each run ends in one of four statuses."""
+lowering and the engine runners. Each run ends in one of five statuses; ``limited`` means every
+compared row agrees, and some rows could not be computed because the engine cannot represent a
+value the reference reaches there (rule 8 of :mod:`rexpr.compare`), listed in ``limited_rows``."""
 
 from __future__ import annotations
 
@@ -15,10 +17,11 @@ from rexpr.api import CompiledExpression
 from rexpr.backends import LOCAL_BACKENDS
 from rexpr.compare import row_differences
 from rexpr.errors import EngineUnavailable, InputProblem, NotPushable, RexprError
+from rexpr.values import EngineLimit
 
 SQL_ENGINES = ("duckdb", "sqlite", "postgres", "mariadb")
 ALL_ENGINES = LOCAL_BACKENDS + SQL_ENGINES
-Status = Literal["agree", "disagree", "unavailable", "not_pushable"]
+Status = Literal["agree", "limited", "disagree", "unavailable", "not_pushable"]
 
 
 @dataclass(frozen=True)
@@ -26,6 +29,13 @@ class Disagreement:
     row: int
     expected: object
     observed: object
+
+
+@dataclass(frozen=True)
+class LimitedRow:
+    row: int
+    reason: str        # the limit's reason: nan, non_finite, nul
+    expected: object   # the reference's value, which the engine could not give
 
 
 @dataclass(frozen=True)
@@ -37,6 +47,7 @@ class EngineRun:
     reason: str = ""
     sql: str | None = None
     values: tuple[object, ...] = field(default=(), repr=False)
+    limited_rows: tuple[LimitedRow, ...] = ()
 
 
 def parse_engine_list(text: str | None) -> tuple[str, ...]:
@@ -102,8 +113,18 @@ def run_on(engine: str, compiled: CompiledExpression, table: pa.Table, expected:
         if exc.code in ("engine_unavailable",):
             return EngineRun(engine, "unavailable", reason=exc.message, sql=sql)
         raise
-    problems = tuple(d for d in compare(expected, observed) if d.row not in losses)
-    reason = (f"{len(losses)} row(s) not compared: {engine} cannot store their input exactly "
-              f"(e.g. {next(iter(losses.values()))})") if losses else ""
-    return EngineRun(engine, "disagree" if problems else "agree", len(observed), problems, reason=reason, sql=sql,
-                     values=tuple(observed))
+    notes = [f"{len(losses)} row(s) not compared: {engine} cannot store their input exactly "
+             f"(e.g. {next(iter(losses.values()))})"] if losses else []
+    limits = {r: v for r, v in enumerate(observed) if isinstance(v, EngineLimit) and r not in losses}
+    covered: dict[int, EngineLimit] = {}
+    if limits:
+        from rexpr.limit_rows import describe, split_limits
+
+        covered, _ = split_limits(compiled.tree, table, limits)  # the others stay disagreements
+        if covered:
+            notes.append(describe(engine, covered))
+    problems = tuple(d for d in compare(expected, observed) if d.row not in losses and d.row not in covered)
+    limited = tuple(LimitedRow(r, covered[r].reason, expected[r]) for r in sorted(covered))
+    status: Status = "disagree" if problems else "limited" if limited else "agree"
+    return EngineRun(engine, status, len(observed), problems, reason="; ".join(notes), sql=sql,
+                     values=tuple(observed), limited_rows=limited)

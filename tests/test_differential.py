@@ -32,6 +32,7 @@ import rexpr
 from rexpr.backends import get_backend
 from rexpr.compare import same_result
 from rexpr.differential import campaign, shrink as shrink_module
+from rexpr.differential.cases import Batch, DiffCase
 from rexpr.differential.campaign import CampaignSpec, corpus_batches, generated_batches, run_campaign, run_shard
 from rexpr.differential.generator import random_expression, structure
 from rexpr.differential.render import terminal_summary
@@ -686,3 +687,97 @@ def test_a_closed_pipe_stops_the_command_quietly(args: tuple[str, ...], tmp_path
     error = process.stderr.read().decode()
     assert process.wait(timeout=300) == 141
     assert error == ""
+
+
+# ------------------------------------------------------------------------ engine limits
+# Rule 8 of rexpr.compare: a row an engine reports as an engine limit is set aside only where
+# the reference reaches a value of that kind (IEEE 754-2019 §7.4: overflow gives ±inf; §6.2,
+# §7.2: inf - inf is NaN); anywhere else the limit is a disagreement. Oracle: the reference.
+LIMIT_SCHEMA = Schema.from_mapping({"x": "float64", "y": "float64"})
+
+
+def _limit_batch(*texts: str) -> Batch:
+    inf = math.inf
+    table = pa.table({"x": pa.array([inf, 1.5, None, -inf, 4.0], pa.float64()),
+                      "y": pa.array([inf, 2.0, 1.0, -inf, 0.5], pa.float64())})
+    cases = tuple(DiffCase(f"limits/{i}", "limits", text, rexpr.compile(text, LIMIT_SCHEMA).tree)
+                  for i, text in enumerate(texts))
+    return Batch("limits", "limits", LIMIT_SCHEMA, table, cases)
+
+
+def _run_limit_batch(engine: str, *texts: str) -> list:
+    states = open_engines(["reference", engine])
+    if states[engine].unavailable:
+        close_engines(states)
+        if REQUIRE_SERVERS or engine == "sqlite":
+            pytest.fail(f"{engine} is not available: {states[engine].unavailable}")
+        pytest.skip(f"{engine} is not available: {states[engine].unavailable}")
+    try:
+        return [r for r in run_batch(_limit_batch(*texts), states, ["faithful"]) if r.engine == engine]
+    finally:
+        close_engines(states)
+
+
+def test_sqlite_nan_results_are_per_row_and_the_other_rows_are_compared():
+    [nan_case, finite_case] = _run_limit_batch("sqlite", "x - y", "x * y")
+    # x - y is NaN on rows 0 and 3 (inf - inf); x * y is finite or ±inf everywhere (SQLite REAL holds inf).
+    assert nan_case.outcome == "agree", nan_case
+    assert "2 row(s) not compared, sqlite cannot represent the result (engine limit: nan; rows 0, 3)" in nan_case.reason
+    assert finite_case.outcome == "agree" and "engine limit" not in finite_case.reason
+
+
+@pytest.mark.servers
+def test_mariadb_non_finite_rows_are_not_disagreements():
+    results = _run_limit_batch("mariadb", "x * 1e308", "x + y", "x * 1e308 > y")
+    assert [r.outcome for r in results] == ["agree"] * 3, [(r.text, r.reason, r.diffs) for r in results]
+    # x * 1e308 overflows to inf on row 4 only (4e308 > the binary64 maximum ≈ 1.80e308, §3.6, §7.4;
+    # 1.5e308 is finite); the input ±inf rows 0 and 3 are input losses (DOUBLE stores them as NULL).
+    assert "1 row(s) not compared, mariadb cannot represent the result (engine limit: non_finite; rows 4)" \
+        in results[0].reason
+    # A bool result whose way passes through inf (row 4): the limit is covered by the sub-expression.
+    assert "engine limit: non_finite; rows 4)" in results[2].reason
+    assert "engine limit" not in results[1].reason  # 5.6 and 4.5 are finite sums
+
+
+def test_a_limit_where_the_reference_is_finite_is_a_disagreement():
+    # A real SQLite limit raised on every row, compared once against a case whose reference
+    # reaches NaN only on rows 0 and 3 (inf - inf), and once against one that is finite there.
+    from rexpr.differential.runner import _compared
+    from rexpr.engines import get_engine
+    from rexpr.engines.base import SqlItem
+    import sqlglot
+
+    batch = _limit_batch("x - y", "x + 1.0")
+    sqlite = get_engine("sqlite")
+    try:
+        [limited] = sqlite.evaluate(batch.table, [SqlItem("v", sqlglot.parse_one("rexpr_raise('rexpr-limit:nan')"),
+                                                          batch.cases[0].tree.type)])
+    finally:
+        sqlite.close()
+    observed = limited.to_pylist()
+    assert all(isinstance(v, rexpr.values.EngineLimit) for v in observed)
+    verdicts = []
+    for case in batch.cases:
+        expected = get_backend("reference")(case.tree)(batch.table).to_pylist()
+        verdicts.append(_compared(case, "sqlite", "faithful", expected, observed, table=batch.table))
+    nan_case, finite_case = verdicts
+    assert nan_case.outcome == "disagree" and {d.row for d in nan_case.diffs} == {1, 2, 4}
+    assert finite_case.outcome == "disagree" and {d.row for d in finite_case.diffs} == {0, 1, 2, 3, 4}
+
+
+def test_check_shows_engine_limit_rows_plainly():
+    # inf - inf is NaN (IEEE 754-2019 §7.2); SQLite has no NaN, so those rows are engine-limit rows:
+    # status "limited", exit 0 (not a disagreement), and each such row named with the reference's value.
+    if "sqlite" not in AVAILABLE:
+        pytest.fail("sqlite is not available")
+    args = ("check", "x - x", "--field", "x:float64", "--engines", "reference,sqlite")
+    text = cli(*args)
+    assert text.returncode == 0, text.stderr
+    [line] = [l for l in text.stdout.splitlines() if l.strip().startswith("sqlite")]
+    assert line.split()[1] == "limited" and "engine limit: nan" in line
+    assert re.search(r"row \d+: not computed, sqlite cannot represent a NaN float64 .*reference: NaN\s+\[x=-?inf\]",
+                     text.stdout)
+    data = json.loads(cli(*args, "--json").stdout)["results"]["sqlite"]
+    assert data["status"] == "limited" and data["disagreements"] == []
+    assert {r["engine_limit"] for r in data["limited_rows"]} == {"nan"}
+    assert {r["expected"] for r in data["limited_rows"]} == {"NaN"}

@@ -26,14 +26,14 @@ from rexpr.compare import same_result
 from rexpr.edge_values import pool
 from rexpr.engines import ENGINE_NAMES, get_engine, session_for_connection
 from rexpr.engines.base import Runner, SqlItem
-from rexpr.engines.failures import EngineError, SourceRowFailed, UnstorableInput
+from rexpr.engines.failures import EngineError, EngineLimitReached, SourceRowFailed, UnstorableInput
 from rexpr.engines.mapping import TypeMismatch
 from rexpr.engines.settings import CONFIG_VARIABLE, ServerSettings, server_settings
 from rexpr.engines.statement import SelectBuilder, select_items
 from rexpr.errors import EngineUnavailable, InputProblem
 from rexpr.schema import Schema
 from rexpr.types import BOOL, FLOAT64, INT64, INT64_MAX, INT64_MIN, STRING, DataType, Kind
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 
 def column(name: str) -> exp.Expression:
@@ -638,3 +638,97 @@ def test_native_like_escape_errors(engine: str) -> None:
     finally:
         runner.close()
     assert_same(reference("s like 'a' escape 'ab'", table), result.to_pylist())
+
+
+# ------------------------------------------------------------------------ engine limits
+# IEEE 754-2019 §7.4: an overflowing result rounds to ±inf (round to nearest), so 1e308 * 10
+# and exp(1000) are +inf (exp(1000) ≈ 1.97e434, beyond the binary64 maximum ≈ 1.80e308, §3.6),
+# and §7.2: inf - inf is an invalid operation whose result is a quiet NaN (§6.2). MariaDB's DOUBLE
+# holds neither (MariaDB raises 1690 "DOUBLE value is out of range", from memory); SQLite's
+# REAL gives NULL for the NaN (from memory). Each such row must be an engine-limit row, and
+# the finite rows of the same statement keep their values. Oracle: the reference evaluator.
+def _limits_and_values(result) -> tuple[dict[int, str], dict[int, object]]:
+    observed = result.to_pylist()
+    limits = {row: v.reason for row, v in enumerate(observed) if isinstance(v, EngineLimit)}
+    return limits, {row: v for row, v in enumerate(observed) if row not in limits}
+
+
+@pytest.mark.servers
+def test_mariadb_double_overflow_is_a_per_row_engine_limit() -> None:
+    runner = open_runner("mariadb")
+    table = pa.table({"a": pa.array([1e308, 1.0, None, 1000.0, 2.0], pa.float64())})
+    items = [SqlItem("product", parse("{a} * 10e0", runner), FLOAT64), SqlItem("exp", parse("EXP({a})", runner), FLOAT64),
+             SqlItem("a", column("a"), FLOAT64)]
+    try:
+        product, exponential, plain = runner.evaluate(table, items)
+    finally:
+        runner.close()
+    for result, text in ((product, "a * 10.0"), (exponential, "exp(a)")):
+        expected = reference(text, table)
+        limits, values = _limits_and_values(result)
+        assert limits == {row: "non_finite" for row, e in enumerate(expected)
+                          if isinstance(e, float) and math.isinf(e)}, (text, result.to_pylist())
+        assert limits  # the table reaches ±inf for both items
+        assert_same([expected[row] for row in values], list(values.values()))
+        assert not result.evaluation.errors  # a limit is not an error class
+    assert plain.to_pylist() == table.column("a").to_pylist()
+
+
+@pytest.mark.servers
+def test_mariadb_limit_tag_is_read_before_the_errno() -> None:
+    # The raise construct is a BIGINT overflow (errno 1690, otherwise out_of_range): the
+    # rexpr-limit tag it quotes decides, as the classification order in failures.py says.
+    runner = open_runner("mariadb")
+    table = pa.table({"a": pa.array([0.0, 4.0], pa.float64())})
+    sql = ("CASE WHEN {a} = 0 THEN CASE WHEN (((RAND() >= 0) + ('rexpr-limit:non_finite' <> '')) "
+           "+ 9223372036854775807) > 0 THEN CAST(NULL AS DOUBLE) END ELSE {a} / 2e0 END")
+    try:
+        [result] = runner.evaluate(table, [SqlItem("q", parse(sql, runner), FLOAT64)])
+    finally:
+        runner.close()
+    assert _limits_and_values(result) == ({0: "non_finite"}, {1: 2.0})
+
+
+def test_sqlite_nan_result_is_a_per_row_engine_limit() -> None:
+    runner = open_runner("sqlite")
+    inf = float("inf")
+    table = pa.table({"a": pa.array([inf, 1.5, None, -inf], pa.float64())})
+    item = SqlItem("d", sqlglot.parse_one("CASE WHEN a IS NULL THEN NULL ELSE "
+                                          "COALESCE(a - a, rexpr_raise('rexpr-limit:nan')) END", read="sqlite"),
+                   FLOAT64)
+    try:
+        result, plain = runner.evaluate(table, [item, SqlItem("a", column("a"), FLOAT64)])
+    finally:
+        runner.close()
+    assert plain.to_pylist() == table.column("a").to_pylist()  # the other item is untouched
+    expected = reference("a - a", table)
+    limits, values = _limits_and_values(result)
+    assert limits == {row: "nan" for row, e in enumerate(expected) if isinstance(e, float) and math.isnan(e)}
+    assert limits == {0: "nan", 3: "nan"}
+    assert_same([expected[row] for row in values], list(values.values()))
+
+
+def test_a_limit_tag_beside_a_class_tag_is_no_known_outcome() -> None:
+    runner = open_runner("duckdb")
+    table = _divisor_table(20)
+    sql = "CASE WHEN {a} = 0 THEN error('rexpr-limit:nan and rexpr:out_of_range') ELSE {a} END"
+    try:
+        with pytest.raises(EngineError) as info:
+            runner.evaluate(table, [SqlItem("q", parse(sql, runner), INT64)])
+    finally:
+        runner.close()
+    assert info.value.code == "engine_error"
+
+
+def test_borrowed_connection_reports_an_engine_limit_as_a_typed_error() -> None:
+    connection = sqlite3.connect(":memory:")
+    connection.execute("CREATE TABLE calls (note TEXT)")
+    connection.executemany("INSERT INTO calls VALUES (?)", [("pilot\x00aboard",), ("berth 4",)])
+    session = session_for_connection("sqlite", connection)
+    with pytest.raises(EngineLimitReached) as info:
+        session.fetch_arrow("SELECT CASE WHEN instr(note, char(0)) > 0 THEN rexpr_raise('rexpr-limit:nul') "
+                            "ELSE length(note) END AS n FROM calls", pa.schema([("n", pa.int64())]))
+    connection.close()
+    error = info.value
+    assert (error.code, error.reason, error.engine) == ("engine_limit", "nul", "sqlite")
+    assert "U+0000" in error.message and "local" in error.message

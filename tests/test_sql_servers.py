@@ -10,8 +10,8 @@ must be declared refused, without touching this file. No mocks.
 
 MariaDB's DOUBLE holds no NaN, ±inf or -0.0 (its declared domain limit): rows whose input the
 runner had to store altered (``input_losses``) are not compared, and rows where some float64
-subexpression is NaN or ±inf per the reference must raise out_of_range or agree, never give
-another value.
+subexpression is NaN or ±inf per the reference must be engine-limit rows (``non_finite``) or
+agree, never give another value and never raise an error class.
 """
 
 from __future__ import annotations
@@ -26,7 +26,7 @@ import pyarrow as pa
 import pytest
 
 import rexpr
-from engines_support import open_runner
+from engines_support import DEEP_SHAPES, NULL_BESIDE_ERROR, deepest_lowered, open_runner
 from rexpr.catalogue import CAST_RULES, ENTRIES, FunctionSpec
 from rexpr.catalogue.model import ErrorClass
 from rexpr.compare import same_result
@@ -42,7 +42,7 @@ from rexpr.sql.dialects import _case_mapping
 from rexpr.sql.lowering import dialect_of, lower, to_sql
 from rexpr.typed import TCall, TField, TLiteral, Typed, fields_read, walk
 from rexpr.types import DataType, Kind
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 pytestmark = pytest.mark.servers
 
@@ -156,6 +156,10 @@ def _outside_float_domain(tree: Typed, table: pa.Table) -> set[int]:
     return out
 
 
+def _non_finite_limit(value: object) -> bool:
+    return isinstance(value, EngineLimit) and value.reason == "non_finite"
+
+
 def _declared_limited(engine: str, tree: Typed) -> bool:
     profile = dialect_of(engine)
     return any(capability(profile, n.function).status != "faithful" for n in walk(tree) if isinstance(n, TCall))
@@ -190,8 +194,8 @@ def check(engine: str, runner: Runner, tree: Typed, label: str, table: pa.Table 
     for row, (e, o) in enumerate(zip(expected, observed)):
         if row in result.input_losses or same_result(e, o):
             continue
-        if row in domain and isinstance(o, RowError) and o.error is ErrorClass.OUT_OF_RANGE:
-            continue  # MariaDB's DOUBLE domain: an error, never another value
+        if row in domain and _non_finite_limit(o):
+            continue  # MariaDB's DOUBLE domain: an engine-limit row, never another value
         wrong.append((row, e, o))
     if wrong:
         shown = [(row, {n: table.column(n)[row].as_py() for n in table.column_names}, e, o) for row, e, o in wrong[:5]]
@@ -290,7 +294,7 @@ def test_corpus_cases_on_the_server(server: tuple[str, Runner], corpus) -> None:
         for row, (e, o) in enumerate(zip(case.expected, result.to_pylist())):
             if row in result.input_losses or same_result(e, o):
                 continue
-            if row in domain and isinstance(o, RowError) and o.error is ErrorClass.OUT_OF_RANGE:
+            if row in domain and _non_finite_limit(o):
                 continue
             wrong.append((case.label, row, e, o))
     assert not wrong, f"{name} disagrees with {corpus.name}: {wrong[:8]}"
@@ -491,6 +495,21 @@ def test_untaken_error_never_fires(server: tuple[str, Runner]) -> None:
         assert result.to_pylist() == expected, text
 
 
+# An error beside a null: the cases (and their sources) are in engines_support.py.
+@pytest.mark.parametrize("text, columns, error", NULL_BESIDE_ERROR, ids=[c[0] for c in NULL_BESIDE_ERROR])
+def test_an_error_beats_a_null_operand(server: tuple[str, Runner], text: str, columns: dict, error: str) -> None:
+    name, runner = server
+    if columns:
+        tree, table = _tree_and_table(text, columns)
+    else:
+        tree, table = rexpr.compile(text, {}).tree, pa.table({"_row": [0]})
+    [expected] = evaluate_table(tree, table).to_pylist()  # oracle: the reference evaluator
+    assert isinstance(expected, RowError) and expected.error.value == error
+    [result] = runner.evaluate(table, [SqlItem("v", lower(tree, name), tree.type)])
+    assert same_result(expected, result.to_pylist()[0]), \
+        f"{name} gave {result.to_pylist()[0]!r}; SQL: {to_sql(tree, name)[:1500]}"
+
+
 def test_error_class_survives_an_overflow_message_that_quotes_a_tag(server: tuple[str, Runner]) -> None:
     # A MariaDB overflow message quotes the whole expression, guards and literals included;
     # the class must still be out_of_range (ISO/IEC 9075-2 22003), not a quoted tag's class.
@@ -504,7 +523,7 @@ def test_error_class_survives_an_overflow_message_that_quotes_a_tag(server: tupl
         observed = result.to_pylist()
         for e, o in zip(expected, observed):
             if isinstance(e, float) and math.isinf(e) and name == "mariadb":
-                assert isinstance(o, RowError) and o.error is ErrorClass.OUT_OF_RANGE, (text, o)
+                assert _non_finite_limit(o), (text, o)  # the DOUBLE domain limit, whatever the message quotes
             else:
                 assert same_result(e, o), (text, e, o)
 
@@ -561,3 +580,69 @@ def test_session_settings_the_sql_assumes_are_in_force(server: tuple[str, Runner
         assert "NO_BACKSLASH_ESCAPES" not in modes and "PIPES_AS_CONCAT" not in modes
         assert settings["time_zone"] == "+00:00"
         assert settings["character_set_connection"] == "utf8mb4"
+
+
+# SQL deeper than the lowering's limit is refused (NotPushable); whatever it does produce must run
+# on the server (MariaDB's thread stack and PostgreSQL's stack depth limit are the server's own).
+@pytest.mark.parametrize("shape", sorted(DEEP_SHAPES))
+def test_the_deepest_sql_produced_runs_on_the_server(server: tuple[str, Runner], shape: str) -> None:
+    name, runner = server
+    deepest = deepest_lowered(shape, SCHEMA, name)
+    check(name, runner, deepest, f"{shape} nested deepest", _edge_table(deepest).slice(0, 6))
+
+
+# ------------------------------------------------------------------------------ engine limits
+# IEEE 754-2019 §7.4: overflow rounds to ±inf (1e308 * 10, exp(1000) ≈ 1.97e434 beyond the
+# binary64 maximum ≈ 1.80e308, §3.6); 'inf' and 'nan' are numerals of the cast table (docs/semantics.md)
+# for ±inf and a quiet NaN (§6.2). MariaDB's DOUBLE holds none of them: such rows are engine-limit
+# rows (rexpr-limit:non_finite), not out_of_range, and a finite row in the same statement keeps
+# its value. Oracle for the finite rows: the reference evaluator.
+MARIADB_LIMITS = ["1e308 * 10.0", "cast('inf' as float64)", "exp(1000.0)", "x * 10.0", "exp(x)",
+                  "cast(s as float64)"]
+
+
+def test_mariadb_non_finite_results_are_engine_limit_rows() -> None:
+    runner = open_runner("mariadb")
+    table = pa.table({"x": pa.array([1e308, 2.0, None, 1000.0], pa.float64()),
+                      "s": pa.array(["inf", "2.5", None, "-nan"], pa.string())})
+    schema = Schema.from_mapping({"x": "float64", "s": "string"})
+    trees = [rexpr.compile(text, schema).tree for text in MARIADB_LIMITS]
+    finite = rexpr.compile("x + 1.0", schema).tree  # beside them, in the same statement
+    items = [SqlItem(f"c{i}", lower(tree, "mariadb"), tree.type) for i, tree in enumerate(trees + [finite])]
+    try:
+        results = runner.evaluate(table, items)
+    finally:
+        runner.close()
+    assert results[0].statements == results[-1].statements > 1  # one batch, bisected
+    for text, tree, result in zip(MARIADB_LIMITS + ["x + 1.0"], trees + [finite], results):
+        expected = evaluate_table(tree, table).to_pylist()
+        observed = result.to_pylist()
+        non_finite = {row for row, e in enumerate(expected) if isinstance(e, float) and not math.isfinite(e)}
+        assert {row for row, o in enumerate(observed) if _non_finite_limit(o)} == non_finite, (text, observed)
+        assert not result.evaluation.errors, text  # never an error class
+        for row in set(range(table.num_rows)) - non_finite:
+            assert same_result(expected[row], observed[row]), (text, row, expected[row], observed[row])
+    assert {row for row, o in enumerate(results[0].to_pylist()) if _non_finite_limit(o)} == {0, 1, 2, 3}
+    assert results[-1].to_pylist() == [1e308, 3.0, None, 1001.0]  # 1e308 + 1 rounds to 1e308 (§4.3)
+
+
+def test_a_pushed_filter_that_reaches_an_engine_limit_is_a_typed_error() -> None:
+    from rexpr.engines.failures import EngineLimitReached
+    from rexpr.engines.layout import TABLE_NAME, layout_of
+    from rexpr.planner.execute import TableSource, execute
+    from rexpr.planner.plan import plan
+
+    runner = open_runner("mariadb")
+    schema = Schema.from_mapping({"draught": "string", "berth": "int64"})
+    table = pa.table({"draught": pa.array(["9.5", "inf", "12.0"]), "berth": pa.array([1, 2, 3], pa.int64())})
+    try:
+        runner._load(layout_of(table))
+        p = plan("cast(draught as float64) > 10.0", schema, "mariadb")
+        assert p.pushed_sql is not None
+        with pytest.raises(EngineLimitReached) as info:
+            execute(p, schema, TableSource("mariadb", TABLE_NAME, runner._connection))
+    finally:
+        runner.close()
+    error = info.value
+    assert (error.code, error.reason, error.engine) == ("engine_limit", "non_finite", "mariadb")
+    assert "infinite" in error.message and "local" in error.message and "cast(draught as float64)" in error.message

@@ -1,6 +1,7 @@
 """Check one expression: type it, show the typed tree, and compare every engine with the reference.
 
-Exit code 0 when every available engine agrees, 1 when one disagrees, 2 for invalid input.
+Exit code 0 when every available engine agrees (``limited`` counts: the rows it could not
+compute are ones it cannot represent, listed per row), 1 when one disagrees, 2 for invalid input.
 """
 
 from __future__ import annotations
@@ -10,6 +11,7 @@ import json
 import sys
 
 from rexpr.api import compile as compile_expression
+from rexpr.engines.failures import LIMIT_WHAT
 from rexpr.errors import InputProblem
 from rexpr.printing import tree_lines
 from rexpr.rows import edge_table, load_rows
@@ -79,6 +81,8 @@ def _as_json(compiled, runs: list[EngineRun], rows: int, source: str, lowering: 
                 **({"reason": r.reason} if r.reason else {}),
                 "disagreements": [{"row": d.row, "expected": to_json_value(d.expected),
                                    "observed": to_json_value(d.observed)} for d in r.disagreements],
+                **({"limited_rows": [{"row": x.row, "engine_limit": x.reason, "expected": to_json_value(x.expected)}
+                                     for x in r.limited_rows]} if r.limited_rows else {}),
             } for r in runs
         },
         "sql": {r.engine: r.sql for r in runs if r.sql is not None},
@@ -105,11 +109,21 @@ def _print_text(compiled, runs: list[EngineRun], table, source: str, expected: l
         if r.sql:
             print(f"  {'':<{width}}  sql: {r.sql}", file=out)
         for d in r.disagreements[:MAX_SHOWN]:
-            inputs = ", ".join(f"{name}={show_value(table.column(name)[d.row].as_py())}"
-                               for name in table.column_names if name in {p[0] for p in compiled.field_paths})
             print(f"  {'':<{width}}  row {d.row}: expected {show_value(d.expected)}, got "
-                  f"{show_value(d.observed)}   [{inputs}]", file=out)
+                  f"{show_value(d.observed)}   [{_inputs(compiled, table, d.row)}]", file=out)
         if len(r.disagreements) > MAX_SHOWN:
             print(f"  {'':<{width}}  ... and {len(r.disagreements) - MAX_SHOWN} more", file=out)
+        for x in r.limited_rows[:MAX_SHOWN]:
+            print(f"  {'':<{width}}  row {x.row}: not computed, {r.engine} cannot represent "
+                  f"{LIMIT_WHAT.get(x.reason, x.reason)}; reference: {show_value(x.expected)}   "
+                  f"[{_inputs(compiled, table, x.row)}]", file=out)
+        if len(r.limited_rows) > MAX_SHOWN:
+            print(f"  {'':<{width}}  ... and {len(r.limited_rows) - MAX_SHOWN} more rows at the engine limit", file=out)
     print("", file=out)
     print("Agreement is checked on these rows only: evidence, not proof.", file=out)
+
+
+def _inputs(compiled, table, row: int) -> str:
+    used = {p[0] for p in compiled.field_paths}
+    return ", ".join(f"{name}={show_value(table.column(name)[row].as_py())}"
+                     for name in table.column_names if name in used)

@@ -53,7 +53,10 @@ def check_pushed(plan_: Plan, sample: pa.Table) -> PushedCheck:
         parts.append(f"{statuses['disagree']} pushed part(s) DISAGREE with the reference")
     if statuses["unavailable"]:
         parts.append(f"{statuses['unavailable']} pushed part(s) NOT CHECKED ({engine} unavailable)")
+    if statuses["limited"]:
+        parts.append(f"{statuses['limited']} pushed part(s) agree except on rows {engine} cannot represent "
+                     "(engine limit; such a filter raises engine_limit there instead of a wrong row)")
     if statuses["not_pushable"]:
         parts.append(f"{statuses['not_pushable']} pushed part(s) REFUSED by the {engine} lowering")
     text = "; ".join(parts) + (f" ({'; '.join(dict.fromkeys(reasons))})" if reasons else "")
-    return PushedCheck(text, statuses["agree"] == sum(statuses.values()))
+    return PushedCheck(text, statuses["agree"] + statuses["limited"] == sum(statuses.values()))

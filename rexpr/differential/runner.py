@@ -8,7 +8,9 @@ The reference itself is checked against the published answers the corpora state.
 
 Every (case, engine, lowering) ends in one outcome; nothing is dropped silently: a backend that
 cannot be loaded is ``unavailable``, one that crashes or loses its connection is ``failed``,
-and a lowering that refuses a function is ``not_pushable``.
+and a lowering that refuses a function is ``not_pushable``. Rows an engine cannot compute because
+it cannot represent a value they reach (engine limits) are set aside only where the reference
+reaches such a value too (rule 8 of :mod:`rexpr.compare`), and counted in the case's reason.
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from rexpr.differential.cases import Batch, DiffCase
 from rexpr.errors import NotPushable, RexprError
 from rexpr.evaluation import Evaluation
 from rexpr.typed import functions_used
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 Outcome = Literal["agree", "disagree", "not_pushable", "unavailable", "failed"]
 SQL_ENGINES = ("duckdb", "sqlite", "postgres", "mariadb")
@@ -150,14 +152,26 @@ def _result(case: DiffCase, engine: str, lowering: str, outcome: Outcome, **kw) 
 
 
 def _compared(case: DiffCase, engine: str, lowering: str, expected: list[object], observed: list[object],
-              sql: str | None = None, reason: str = "", losses: dict[int, str] | None = None) -> CaseResult:
+              sql: str | None = None, reason: str = "", losses: dict[int, str] | None = None,
+              table: pa.Table | None = None) -> CaseResult:
+    type_problem = reason
+    notes: list[str] = []
     if losses:  # the engine could not hold these rows' input (SQLite has no NaN): not comparable
         observed = [expected[r] if r in losses else v for r, v in enumerate(observed)]
-        reason = f"{len(losses)} row(s) not compared, the engine altered their input: " + \
-            "; ".join(f"row {r}: {what}" for r, what in list(losses.items())[:5])
+        notes.append(f"{len(losses)} row(s) not compared, the engine altered their input: " +
+                     "; ".join(f"row {r}: {what}" for r, what in list(losses.items())[:5]))
+    limits = {r: v for r, v in enumerate(observed) if isinstance(v, EngineLimit)}
+    if limits and table is not None:  # rule 8: set aside only what the reference explains
+        from rexpr.limit_rows import describe, split_limits
+
+        covered, _ = split_limits(case.tree, table, limits)
+        if covered:
+            observed = [expected[r] if r in covered else v for r, v in enumerate(observed)]
+            notes.append(describe(engine, covered))
+    reason = "; ".join(([type_problem] if type_problem else []) + notes)
     diffs = _diffs(expected, observed)
-    if reason and not diffs and not losses:  # the values match but the result type does not
-        diffs = (RowDiff(-1, "result type", reason),)
+    if type_problem and not diffs:  # the values match but the result type does not
+        diffs = (RowDiff(-1, "result type", type_problem),)
     return _result(case, engine, lowering, "disagree" if diffs else "agree", diffs=diffs, sql=sql, reason=reason)
 
 
@@ -249,7 +263,7 @@ def run_sql(batch: Batch, state: EngineState, lowering: str, expected: Expected)
             continue
         # Type mismatches stand in place of their rows, so one can never pass for a null.
         results.append(_compared(case, engine, lowering, expected[case.case_id], result.to_pylist(),  # type: ignore[arg-type]
-                                 sql=sqls[case.case_id], losses=result.input_losses))
+                                 sql=sqls[case.case_id], losses=result.input_losses, table=batch.table))
     return results
 
 

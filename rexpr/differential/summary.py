@@ -11,7 +11,7 @@ from collections import defaultdict
 from typing import Any, Iterable
 
 from rexpr.errors import InputProblem
-from rexpr.values import RowError, to_json_value
+from rexpr.values import EngineLimit, RowError, to_json_value
 
 REPORT_FORMAT = "rexpr-differential-report"
 REPORT_VERSION = 1
@@ -26,7 +26,7 @@ def json_value(value: object) -> object:
     rexpr value (a type mismatch) becomes ``{"mismatch": text}``."""
     import datetime
 
-    if isinstance(value, (RowError, datetime.date)) or isinstance(value, _SCALARS):
+    if isinstance(value, (RowError, EngineLimit, datetime.date)) or isinstance(value, _SCALARS):
         return to_json_value(value)
     return {"mismatch": str(value)}
 

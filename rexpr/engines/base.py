@@ -8,7 +8,8 @@
 ``evaluate`` loads the Arrow table as a temporary table (see :mod:`rexpr.engines.layout`), runs
 every item over every row in ONE statement, and, when that fails, bisects
 (:mod:`rexpr.engines.locate`) so each (row, item) gets a value or a classified row error, the
-shape the reference evaluator gives. Engine values are mapped back to the item's canonical
+shape the reference evaluator gives, or an :class:`~rexpr.values.EngineLimit` when the engine
+cannot represent a value the row reaches (kept apart in ``limits``; null in the values). Engine values are mapped back to the item's canonical
 type (:mod:`rexpr.engines.mapping`); what does not map losslessly is kept visible in
 ``type_mismatches``. Input values the engine cannot hold are either refused
 (:class:`~rexpr.engines.failures.UnstorableInput`) or, where the engine turns them into
@@ -24,8 +25,8 @@ from typing import Any, ClassVar, Mapping, Sequence
 import pyarrow as pa
 from sqlglot import exp
 
-from rexpr.engines.failures import (DriverFailure, EngineError, StatementFailed, UnstorableInput, classify,
-                                    classify_failure, failure_from_exception)
+from rexpr.engines.failures import (DriverFailure, EngineError, StatementFailed, UnstorableInput,
+                                    classify_failure, failure_from_exception, row_outcome)
 from rexpr.engines.layout import TABLE_NAME, InputLayout, layout_of
 from rexpr.engines.locate import DEFAULT_MAX_STATEMENTS, ItemOutcome, locate
 from rexpr.engines.mapping import TypeMismatch, ValueRules, map_values
@@ -34,7 +35,7 @@ from rexpr.errors import EngineUnavailable
 from rexpr.evaluation import Evaluation
 from rexpr.schema import to_arrow_type
 from rexpr.types import DataType
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 __all__ = ["Availability", "EngineEvaluation", "Runner", "SessionInfo", "SqlItem", "classify_failure"]
 
@@ -72,11 +73,14 @@ class EngineEvaluation:
     input_losses: dict[int, str] = field(default_factory=dict)             # rows read altered input
     sql: str = ""                                                         # the item in the engine's SQL
     statements: int = 1                                                   # statements the batch took
+    limits: dict[int, EngineLimit] = field(default_factory=dict)           # null in values
 
     def to_pylist(self) -> list[object]:
-        """Values with :class:`RowError` and :class:`TypeMismatch` in place, so a mismatch can
-        never pass for a null when compared."""
+        """Values with :class:`RowError`, :class:`EngineLimit` and :class:`TypeMismatch` in
+        place, so neither a limit nor a mismatch can pass for a null when compared."""
         out = self.evaluation.to_pylist()
+        for row, limit in self.limits.items():
+            out[row] = limit
         for row, mismatch in self.type_mismatches.items():
             out[row] = mismatch
         return out
@@ -214,13 +218,13 @@ class Runner(ABC):
     def _stored_names(self, sql: str) -> list[str]:
         """Column names of the result of ``sql``, as the engine reports them."""
 
-    def _row_error(self, failed: StatementFailed) -> RowError:
-        error_class = classify(failed.failure)
-        if error_class is None:
+    def _row_error(self, failed: StatementFailed) -> RowError | EngineLimit:
+        outcome = row_outcome(failed.failure)
+        if outcome is None:
             raise EngineError(f"{self.name} failed a statement, and the failure is not a per-row error: "
                               f"{failed.failure.message}", engine=self.name, sql=failed.sql,
                               engine_message=failed.failure.message)
-        return RowError(error_class, failed.failure.message.splitlines()[0][:200] if failed.failure.message else "")
+        return outcome
 
     def _assemble(self, item: SqlItem, outcome: ItemOutcome, row_count: int, losses: Losses,
                   statements: int) -> EngineEvaluation:
@@ -241,8 +245,11 @@ class Runner(ABC):
         if len(values) != row_count:
             raise EngineError(f"{self.name}: results for item {item.alias!r} cover {len(values)} of "
                               f"{row_count} rows", engine=self.name)
-        return EngineEvaluation(item.alias, Evaluation(item.type, values, dict(outcome.errors)), mismatches,
-                                _item_losses(item, losses), item.expression.sql(dialect=self.dialect), statements)
+        errors = {row: e for row, e in outcome.errors.items() if isinstance(e, RowError)}
+        limits = {row: e for row, e in outcome.errors.items() if isinstance(e, EngineLimit)}
+        return EngineEvaluation(item.alias, Evaluation(item.type, values, errors), mismatches,
+                                _item_losses(item, losses), item.expression.sql(dialect=self.dialect), statements,
+                                limits)
 
 
 def _check_columns(engine: str, items: Sequence[SqlItem], layout: InputLayout) -> None:

@@ -1,7 +1,14 @@
 """Engine failures: the typed errors the runners raise, and how a driver error becomes a
-per-row error class.
+per-row error class or a per-row engine limit.
 
-Classification order (first match wins):
+An engine limit comes first: a row whose value the engine cannot represent is not an error of
+the semantics, it is an :class:`~rexpr.values.EngineLimit` (see :func:`limit_of`):
+0. MariaDB's own DOUBLE overflow (1690 "DOUBLE value is out of range"; our raise construct is a
+   BIGINT overflow, so this one is always the engine's), or a ``rexpr-limit:<reason>`` tag the
+   faithful lowering raises (reasons ``nan``, ``non_finite``, ``nul``). A limit tag next to a
+   class tag, or two different limit reasons, is nothing we know: neither limit nor row error.
+
+Otherwise, classification order (first match wins):
 1. a ``rexpr:<class>`` tag in the message (the faithful lowering raises these on purpose;
    SQLite's ``rexpr_raise`` passes its tag on a side channel because the driver drops the text).
    Two different tags in one message is no row error we know, so it is not classified;
@@ -21,6 +28,7 @@ from typing import Any
 
 from rexpr.catalogue.model import ErrorClass
 from rexpr.errors import EvaluationFailed, RexprError
+from rexpr.values import EngineLimit, RowError
 
 
 class EngineError(RexprError):
@@ -49,6 +57,21 @@ class UnstorableInput(EngineError):
     names MariaDB rejects, names an engine would rename or truncate)."""
 
     code = "engine_cannot_store"
+
+
+class EngineLimitReached(EngineError):
+    """A statement on a caller's table reached a value the engine cannot represent (the planner's
+    pushed SQL): rexpr will not read a wrong row, so the query fails."""
+
+    code = "engine_limit"
+
+    def __init__(self, message: str, *, engine: str, reason: str, sql: str | None = None,
+                 engine_message: str | None = None) -> None:
+        super().__init__(message, engine=engine, sql=sql, engine_message=engine_message)
+        self.reason = reason
+
+    def to_dict(self) -> dict[str, Any]:
+        return {**super().to_dict(), "reason": self.reason}
 
 
 class SourceRowFailed(EvaluationFailed):
@@ -85,6 +108,18 @@ class StatementFailed(Exception):
 _CLASS_NAMES = "|".join(sorted((e.value for e in ErrorClass), key=len, reverse=True))
 # The tag stands alone: not part of a longer word, so 'xrexpr:...' or '...:out_of_rangex' do not count.
 _TAG = re.compile(rf"(?<![A-Za-z0-9_])rexpr:({_CLASS_NAMES})(?![A-Za-z0-9_])")
+
+LIMIT_TAG = "rexpr-limit:"
+_LIMIT = re.compile(r"(?<![A-Za-z0-9_])rexpr-limit:([a-z_]+)(?![A-Za-z0-9_])")
+# Raised by the engine's own DOUBLE arithmetic (1e308 * 10, exp(1000)); the message quotes the
+# expression, so tags inside it are quoted text, not raised.
+_MARIADB_DOUBLE = re.compile(r"^DOUBLE value is out of range\b")
+# What each limit reason says the engine cannot represent (for messages and reports).
+LIMIT_WHAT: dict[str, str] = {
+    "nan": "a NaN float64 (SQLite REAL has no NaN)",
+    "non_finite": "a NaN or infinite float64 (MariaDB DOUBLE has neither)",
+    "nul": "text containing U+0000 (SQLite's text functions stop at it)",
+}
 
 # ISO/IEC 9075-2 clause 24 (table 38, SQLSTATE class 22 "data exception"); 22P02 is
 # PostgreSQL's own code for invalid text representation (PostgreSQL manual, appendix A).
@@ -132,8 +167,43 @@ _MESSAGE_PATTERNS: tuple[tuple[str, str, re.Pattern[str], ErrorClass], ...] = (
 )
 
 
+def _first_line(message: str) -> str:
+    return message.splitlines()[0][:200] if message else ""
+
+
+def limit_of(failure: DriverFailure) -> EngineLimit | None:
+    """The engine limit a failure stands for, or None when it is not one."""
+    if failure.engine == "mariadb" and failure.errno == 1690 and _MARIADB_DOUBLE.match(failure.message):
+        return EngineLimit("non_finite", failure.engine, _first_line(failure.message))
+    reasons: set[str] = set()
+    classes: set[str] = set()
+    for text in (failure.tag, failure.message):
+        if text:
+            reasons |= {match[1] for match in _LIMIT.finditer(text)}
+            classes |= {match[1] for match in _TAG.finditer(text)}
+    if len(reasons) == 1 and not classes:
+        return EngineLimit(reasons.pop(), failure.engine, _first_line(failure.message))
+    return None
+
+
+def _has_limit_tag(failure: DriverFailure) -> bool:
+    return any(text and _LIMIT.search(text) for text in (failure.tag, failure.message))
+
+
+def row_outcome(failure: DriverFailure) -> RowError | EngineLimit | None:
+    """What one failing (row, item) stands for: an engine limit, a row error, or None (neither)."""
+    limit = limit_of(failure)
+    if limit is not None:
+        return limit
+    error_class = classify(failure)
+    return None if error_class is None else RowError(error_class, _first_line(failure.message))
+
+
 def classify(failure: DriverFailure) -> ErrorClass | None:
-    """The per-row error class a failure stands for, or None when it is not a row error."""
+    """The per-row error class a failure stands for, or None when it is not a row error (an
+    engine limit is not one: see :func:`limit_of`)."""
+    if limit_of(failure) is not None or _has_limit_tag(failure):
+        return None
     for text in (failure.tag, failure.message):
         if text:
             tagged = {match[1] for match in _TAG.finditer(text)}
@@ -173,7 +243,16 @@ def classify_failure(engine: str, exc: BaseException, sql: str) -> RexprError:
 
 
 def error_for(failure: DriverFailure, sql: str) -> RexprError:
-    """A row error class becomes :class:`SourceRowFailed`; anything else :class:`EngineError`."""
+    """An engine limit becomes :class:`EngineLimitReached`, a row error class
+    :class:`SourceRowFailed`; anything else :class:`EngineError`."""
+    limit = limit_of(failure)
+    if limit is not None:
+        what = LIMIT_WHAT.get(limit.reason, f"a value ({limit.reason})")
+        return EngineLimitReached(
+            f"{failure.engine} cannot represent {what}, and a row of the pushed filter reached one; rexpr "
+            "will not guess that row's answer. Keep the conjunct that computes it local (push only the "
+            "other conjuncts and filter on it in rexpr after reading the rows)",
+            engine=failure.engine, reason=limit.reason, sql=sql, engine_message=failure.message)
     error_class = classify(failure)
     if error_class is not None:
         return SourceRowFailed(f"{failure.engine}: a row raised {error_class.value}: {failure.message}",

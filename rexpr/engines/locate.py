@@ -3,7 +3,8 @@
 A statement over many items and rows fails as a whole at its first failing row. To give every
 (row, item) a value or an error, as the reference does, a failed statement is split: first its
 items in halves, then, for one item, its row range in halves, down to one row and one item,
-whose failure is then classified. Each split halves the work, so the depth is at most
+whose failure is then classified: a row error, or an engine limit (a value the engine cannot
+represent), both kept per (row, item). Each split halves the work, so the depth is at most
 ``ceil(log2(items)) + ceil(log2(rows))``; the statement budget bounds the total when many rows
 fail (at least one statement per failing pair is unavoidable: a failure names no row).
 
@@ -17,12 +18,12 @@ from dataclasses import dataclass, field
 from typing import Callable, Sequence
 
 from rexpr.engines.failures import EngineError, StatementFailed
-from rexpr.values import RowError
+from rexpr.values import EngineLimit, RowError
 
 # run(item indexes, first row, end row) -> one engine-native column per item; raises StatementFailed.
 Run = Callable[[Sequence[int], int, int], Sequence[object]]
-# classify(failure) -> the row error it stands for; raises EngineError when it is not one.
-Classify = Callable[[StatementFailed], RowError]
+# classify(failure) -> the row error or engine limit it stands for; raises EngineError when neither.
+Classify = Callable[[StatementFailed], "RowError | EngineLimit"]
 
 DEFAULT_MAX_STATEMENTS = 50_000
 
@@ -30,7 +31,7 @@ DEFAULT_MAX_STATEMENTS = 50_000
 @dataclass
 class ItemOutcome:
     pieces: list[tuple[int, object]] = field(default_factory=list)   # (first row, engine column)
-    errors: dict[int, RowError] = field(default_factory=dict)
+    errors: dict[int, RowError | EngineLimit] = field(default_factory=dict)  # row -> what it raised
 
 
 @dataclass
@@ -56,7 +57,7 @@ def locate(run: Run, classify: Classify, item_count: int, row_count: int, *, eng
             columns = run(items, lo, hi)
         except StatementFailed as failed:
             if row_count == 0:
-                classify(failed)  # a row error with no rows blames nobody; anything else raises
+                classify(failed)  # a row error or limit with no rows blames nobody; anything else raises
                 for index in items:
                     outcomes[index].pieces.append((0, None))
                 continue

@@ -12,6 +12,9 @@ space, and names that differ only in case; each is refused with ``engine_cannot_
 
 A SELECT that divides by zero yields NULL with warning 1365 (ERROR_FOR_DIVISION_BY_ZERO only
 affects writes): the runner reports the NULL the engine computed; the lowering must guard.
+
+A result DOUBLE cannot hold (NaN, ±inf) fails with 1690 "DOUBLE value is out of range"; that, and
+the lowering's ``rexpr-limit:non_finite`` tag, become per-row engine limits (``limits``).
 """
 
 from __future__ import annotations
@@ -56,6 +59,8 @@ class MariaDBRunner(Runner):
         "Text is utf8mb4 with utf8mb4_bin collation (code point order).",
         "Names outside the BMP, over 64 characters, ending in a space, or equal ignoring case are refused.",
         "Division by zero in a SELECT is NULL plus warning 1365, not an error.",
+        "A NaN or ±inf result (1690 'DOUBLE value is out of range', or the lowering's 'rexpr-limit:non_finite') "
+        "is an engine-limit row, not an error.",
     )
 
     def __init__(self, settings: ServerSettings | None = None) -> None:

@@ -12,7 +12,8 @@ are listed per row in ``input_losses``. NUL inside TEXT is stored whole and read
 
 Per-row errors: ``rexpr_raise(tag TEXT)`` is registered on the connection and raises. The
 sqlite3 module replaces the text of a Python exception with "user-defined function raised
-exception", so the tag goes to the runner on a side channel.
+exception", so the tag goes to the runner on a side channel. A ``rexpr-limit:<reason>`` tag
+(``nan``, ``nul``) is an engine limit, reported per row in ``limits``, not an error.
 """
 
 from __future__ import annotations
@@ -46,7 +47,8 @@ class SQLiteRunner(Runner):
     notes = (
         "NaN is stored as NULL and -0.0 as 0.0 (SQLite REAL); affected rows are listed in input_losses.",
         "Dates are TEXT 'YYYY-MM-DD'; timestamps TEXT 'YYYY-MM-DD HH:MM:SS.ffffff'; bools INTEGER 0/1.",
-        "rexpr_raise(tag) raises a per-row error carrying the tag.",
+        "rexpr_raise(tag) raises a per-row error carrying the tag; 'rexpr-limit:nan' and 'rexpr-limit:nul' "
+        "give engine-limit rows (no NaN in REAL; text functions stop at U+0000), not errors.",
         "LIKE is left at SQLite's default (ASCII case-insensitive); the lowering must not rely on it.",
     )
 

@@ -5,6 +5,10 @@ opened) and Parquet files or Arrow datasets (through ``pyarrow.dataset``, so the
 dataset filter and row groups are skipped). Every execution reports what was read with and
 without the pushdown, measured, not estimated, except that Parquet bytes come from the file
 metadata of the row groups and columns actually scanned.
+
+A pushed statement that reaches a value the source engine cannot represent (MariaDB DOUBLE has
+no NaN or ±inf, SQLite's text functions stop at U+0000) fails with ``engine_limit``, naming the
+pushed conjuncts: rexpr never reads a row whose answer the engine could not give.
 """
 
 from __future__ import annotations
@@ -137,7 +141,14 @@ def _fetch(source: TableSource, sql: str, schema: Schema, columns: list[str]) ->
 
 def _execute_sql(plan: Plan, schema: Schema, source: TableSource, top_level: list[str], output: list[str],
                  measure_baseline: bool) -> Execution:
-    read = _fetch(source, _select_sql(plan, source, top_level, True), schema, top_level)
+    from rexpr.engines.failures import EngineLimitReached
+
+    try:
+        read = _fetch(source, _select_sql(plan, source, top_level, True), schema, top_level)
+    except EngineLimitReached as exc:
+        pushed = "; ".join(c.text for c in plan.conjuncts if c.pushed)
+        raise EngineLimitReached(f"{exc.message}. Pushed conjuncts: {pushed}", engine=exc.engine, reason=exc.reason,
+                                 sql=exc.sql, engine_message=exc.engine_message) from exc
     kept = _apply_residual(plan, read, schema).select(output)
     rows_all = bytes_all = 0
     if measure_baseline:

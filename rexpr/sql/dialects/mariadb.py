@@ -6,8 +6,11 @@ What the faithful lowering works around, each measured on the server (10.11.19, 
   the sign too; ``atan2(x, -1)`` still sees it in a computed value). A result that would be
   ±inf raises 1690 "DOUBLE value is out of range" (``1e308 * 10``, ``exp(1000)``,
   ``pow(10, 400)``), and so does a NaN (``pow(-8, 1/3)``). These are the engine's domain
-  limits: such rows raise an error (out_of_range) instead of giving the value, never a guess.
-  The capability table marks the affected functions conditional.
+  limits, not errors of the semantics: where the lowering sees such a value coming (a
+  non-finite constant, ``cast('inf' as float64)``) it raises the engine-limit tag
+  ``rexpr-limit:non_finite``, and the runner reads the engine's own DOUBLE 1690 as the same
+  limit. Such rows are engine-limit rows, never a guess. The capability table marks the
+  affected functions conditional.
 * ``x / 0``, ``x DIV 0``, ``x % 0``, ``sqrt(-1)`` and ``ln(0)`` are NULL with a warning in a
   SELECT (ERROR_FOR_DIVISION_BY_ZERO only affects writes); every such case is guarded.
 * BIGINT ``+ - * DIV``, ``abs`` and unary minus raise 1690 on overflow, except one case:
@@ -39,7 +42,8 @@ What the faithful lowering works around, each measured on the server (10.11.19, 
 * The optimizer may evaluate constant subexpressions before the rows; constant subtrees are
   lowered to their value, computed by the reference (or to the raise construct).
 
-Errors are raised with ``(RAND() >= 0) + ('rexpr:<class>' <> '') + 9223372036854775807``:
+Errors are raised with ``(RAND() >= 0) + ('rexpr:<class>' <> '') + 9223372036854775807``
+(engine limits the same way with ``'rexpr-limit:<reason>'``):
 BIGINT overflow raises 1690 even in a SELECT, and the message quotes the expression, tag
 included. RAND() keeps the optimizer from evaluating it ahead of the rows. Because a native
 1690 quotes its whole expression too, an overflowing operation whose operands contain a tag
@@ -79,10 +83,22 @@ def typed_null(kind: Kind) -> Tree:
     return t.cast(t.null(), CAST_TYPES[kind], D)
 
 
-def raise_(error: ErrorClass, kind: Kind) -> Tree:
-    overflow = t.add(t.add(t.ge(t.call("RAND"), t.number(0)), t.ne(t.string(f"rexpr:{error.value}"), t.string(""))),
+LIMIT_TAG = "rexpr-limit:"  # an engine limit, not an error class (rexpr.engines.failures.limit_of)
+
+
+def _raising(tag: str, kind: Kind) -> Tree:
+    overflow = t.add(t.add(t.ge(t.call("RAND"), t.number(0)), t.ne(t.string(tag), t.string(""))),
                      t.number(INT64_MAX))
     return t.case((t.gt(overflow, t.number(0)), typed_null(kind)))
+
+
+def raise_(error: ErrorClass, kind: Kind) -> Tree:
+    return _raising(f"rexpr:{error.value}", kind)
+
+
+def limit(reason: str, kind: Kind) -> Tree:
+    """Raise the engine limit ``reason`` (``non_finite``: DOUBLE cannot hold NaN or ±inf)."""
+    return _raising(f"{LIMIT_TAG}{reason}", kind)
 
 
 _JSON_COLUMN = {B: "BIGINT", I: "BIGINT", F: "DOUBLE", S: "LONGTEXT", DATE: "DATE", TS: "DATETIME(6)",
@@ -234,12 +250,12 @@ SQL = _logic.ServerSql(D, raise_, bind, compare, call_may_raise, evaluate_all)
 
 # ---------------------------------------------------------------------------------- numbers
 def quotes_a_tag(trees: list[Tree]) -> bool:
-    """Would a message quoting these trees contain 'rexpr:' (a guard's raise construct, or a
-    user literal or column name with it)?"""
+    """Would a message quoting these trees contain 'rexpr:' or 'rexpr-limit:' (a guard's raise
+    construct, or a user literal or column name with it)?"""
     for tree in trees:
         for node in tree.walk():
             text = node.this if isinstance(node, (exp.Literal, exp.Identifier)) else None
-            if isinstance(text, str) and "rexpr:" in text:
+            if isinstance(text, str) and ("rexpr:" in text or LIMIT_TAG in text):
                 return True
     return False
 
@@ -584,8 +600,8 @@ def _string_to_float(b: Tree) -> Tree:
         (nt.overflows(OPS, sig, p), raise_(ErrorClass.OUT_OF_RANGE, F)), default=t.cast(b, "DOUBLE", D)))
     return t.case((t.is_null(b), typed_null(F)),
                   (t.not_(_matches(b, _FLOAT_TEXT)), raise_(ErrorClass.INVALID_CAST, F)),
-                  # 'inf' and 'nan' are valid but DOUBLE cannot hold them: the domain limit
-                  (_matches(b, "[iInN]"), raise_(ErrorClass.OUT_OF_RANGE, F)),
+                  # 'inf' and 'nan' are valid but DOUBLE cannot hold them: the engine limit
+                  (_matches(b, "[iInN]"), limit("non_finite", F)),
                   default=checked)
 
 
@@ -719,7 +735,7 @@ def _guarded(lowerer: Lowerer) -> Lowerer:
             if isinstance(value, RowError):
                 return raise_(value.error, node.type.kind)
             if isinstance(value, float) and not math.isfinite(value):
-                return raise_(ErrorClass.OUT_OF_RANGE, node.type.kind)
+                return limit("non_finite", node.type.kind)
             return literal(value, node.type)
         return _evaluate_all_first(node, args, lowerer(ctx, node, args))
     return lower
@@ -843,14 +859,14 @@ NATIVE: dict[str, Lowerer] = {
     "year": _call("YEAR"), "month": _call("MONTH"), "day": _call("DAYOFMONTH"),
 }
 
-_FINITE = ("float64 values must stay finite: DOUBLE has no NaN or ±inf, so a result that would "
-           "be one raises out_of_range instead")
+_FINITE = ("float64 values must stay finite: DOUBLE has no NaN or ±inf, so a row whose result would "
+           "be one is an engine-limit row (rexpr-limit:non_finite), not a value")
 _FINITE_IDS = frozenset(("add", "subtract", "multiply", "divide", "power", "exp"))
 _CONDITIONAL = {
     **{fid: _FINITE for fid in _FINITE_IDS},
     "round": "float64 only without digits (or digits a literal 0): ROUND is not exact on the binary "
              "value; int64 always",
-    "cast": "string -> float64 raises out_of_range for 'inf' and 'nan' (DOUBLE cannot hold them); "
+    "cast": "string -> float64 of 'inf' and 'nan' is an engine-limit row (DOUBLE cannot hold them); "
             "float64 -> string of a -0.0 that reached a column reads '0.0' (DOUBLE stores 0.0)",
     "is_nan": "always false for stored values (DOUBLE stores NaN as NULL)",
     "upper": "needs the utf8mb4_uca1400_as_cs collation (MariaDB 10.10 or later); characters assigned "
@@ -923,7 +939,8 @@ PROFILE = DialectProfile(
         "sql_mode must not contain NO_BACKSLASH_ESCAPES (literals escape backslashes) or "
         "PIPES_AS_CONCAT-dependent SQL (CONCAT is used).",
         "Needs MariaDB 10.10 or later for the utf8mb4_uca1400_as_cs collation (Unicode 14 case mapping).",
-        "Errors are raised as a BIGINT overflow (1690) whose message quotes a 'rexpr:<class>' literal.",
+        "Errors are raised as a BIGINT overflow (1690) whose message quotes a 'rexpr:<class>' literal; "
+        "engine limits quote 'rexpr-limit:non_finite', and the engine's own DOUBLE overflow is the same limit.",
         "No NaN, ±inf or -0.0 in DOUBLE: see the conditional capabilities.",
     ),
     divergences=DIVERGENCES,

@@ -8,7 +8,7 @@ What the faithful lowering works around, each measured on SQLite 3.40.1:
 
 * No NaN: a NaN is stored as NULL, and an operation whose IEEE 754 result is NaN (inf - inf,
   0 * inf, fmod(inf, y)) gives NULL. Such a result raises the engine-limit tag
-  ``rexpr-limit:nan`` (not an error class), so the statement fails loudly instead of reading
+  ``rexpr-limit:nan`` (not an error class), so that row is an engine-limit row instead of reading
   as a null. NaN inputs are the runner's business (it reports them as input losses).
 * int64 overflow turns ``+ - * /`` results into REAL and ``abs(-2^63)`` raises an untagged
   "integer overflow"; division or modulo by zero gives NULL; ``sqrt(-1)`` and ``ln(0)`` give
@@ -53,7 +53,7 @@ Tree = t.Tree
 B, I, F, S, DATE, TS = Kind.BOOL, Kind.INT64, Kind.FLOAT64, Kind.STRING, Kind.DATE, Kind.TIMESTAMP
 QUOTING = Quoting(D, char_function="char", join="pipes")
 RAISE_FUNCTION = "rexpr_raise"
-LIMIT_TAG = "rexpr-limit:"  # not an error class: the runner reports a failed statement
+LIMIT_TAG = "rexpr-limit:"  # not an error class: the runner reports an engine-limit row
 TWO_52 = 2.0**52  # from here on every double is an integer (IEEE 754 binary64, 52 fraction bits)
 TWO_53 = 2.0**53
 
@@ -579,16 +579,16 @@ CAPABILITIES: dict[str, Capability] = {
     "lower": Capability("not_pushable", _CASE_MAPPING),
     "round": Capability("conditional", "int64: digits a literal; float64: digits absent or the literal 0"),
     "like": Capability("conditional", "with escape: pattern and escape literals (matching uses GLOB); "
-                                      "NUL in the text or pattern fails the statement (engine limit)"),
+                                      "NUL in the text or pattern makes the row an engine-limit row"),
     "cast": Capability("conditional", "every cast except string -> float64 and float64 -> string"),
-    "length": Capability("faithful", "NUL in the text fails the statement (engine limit), never a wrong count"),
-    "substring": Capability("faithful", "NUL in the text fails the statement (engine limit)"),
-    "replace": Capability("faithful", "NUL in the search text fails the statement (engine limit)"),
-    "add": Capability("faithful", "a float64 NaN result fails the statement (SQLite has no NaN)"),
-    "subtract": Capability("faithful", "a float64 NaN result fails the statement (SQLite has no NaN)"),
-    "multiply": Capability("faithful", "a float64 NaN result fails the statement (SQLite has no NaN)"),
-    "divide": Capability("faithful", "a NaN result (inf / inf) fails the statement (SQLite has no NaN)"),
-    "modulo": Capability("faithful", "a float64 NaN result fails the statement (SQLite has no NaN)"),
+    "length": Capability("faithful", "NUL in the text makes the row an engine-limit row, never a wrong count"),
+    "substring": Capability("faithful", "NUL in the text makes the row an engine-limit row"),
+    "replace": Capability("faithful", "NUL in the search text makes the row an engine-limit row"),
+    "add": Capability("faithful", "a float64 NaN result is an engine-limit row (SQLite has no NaN)"),
+    "subtract": Capability("faithful", "a float64 NaN result is an engine-limit row (SQLite has no NaN)"),
+    "multiply": Capability("faithful", "a float64 NaN result is an engine-limit row (SQLite has no NaN)"),
+    "divide": Capability("faithful", "a NaN result (inf / inf) is an engine-limit row (SQLite has no NaN)"),
+    "modulo": Capability("faithful", "a float64 NaN result is an engine-limit row (SQLite has no NaN)"),
     "is_nan": Capability("faithful", "SQLite holds no NaN: NaN inputs are input losses, NaN results fail"),
 }
 
@@ -735,7 +735,7 @@ PROFILE = DialectProfile(
     literal=literal,
     notes=(
         "Errors are raised by rexpr_raise('rexpr:<class>'); engine limits by rexpr_raise('rexpr-limit:nan') and "
-        "rexpr_raise('rexpr-limit:nul'), which are not error classes, so the statement fails instead.",
+        "rexpr_raise('rexpr-limit:nul'), which are not error classes: such rows are engine-limit rows.",
         "A NaN literal is refused: SQLite has no NaN.",
         "NUL (U+0000) in a string literal is written as char(0).",
     ),
