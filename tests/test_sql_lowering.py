@@ -611,3 +611,14 @@ def test_struct_field_paths_are_dotted_columns(engine: tuple[str, Runner]) -> No
                                        pa.struct([("port", pa.string()), ("berth", pa.int64())]))})
     [result] = runner.evaluate(table, [SqlItem("v", item, compiled.type)])
     assert result.to_pylist() == evaluate_table(compiled.tree, table).to_pylist()  # oracle: reference evaluator
+
+
+@pytest.mark.parametrize("escape", ["é", "€", "😀"])
+def test_duckdb_refuses_an_escape_it_cannot_take(escape: str) -> None:
+    # The catalogue allows any one-character escape (ISO/IEC 9075-2 8.5: an escape is one
+    # character); DuckDB's LIKE refuses every non-ASCII one, so the lowering must not push it.
+    with pytest.raises(duckdb.Error, match="escape"):
+        duckdb.connect().sql(f"SELECT 'a' LIKE 'a' ESCAPE '{escape}'").fetchall()
+    tree = rexpr.compile(f"s like 'a{escape}%' escape '{escape}'", {"s": "string"}).tree
+    with pytest.raises(NotPushable, match="ASCII"):
+        to_sql(tree, "duckdb")

@@ -392,6 +392,8 @@ def _like(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
         return em.guarded(ENGINE, node, args, [(t.boolean(True), ErrorClass.INVALID_ESCAPE)], typed_null(B))
     if escape in "%_":
         ctx.refuse(node, "an escape of % or _ is ambiguous in DuckDB's LIKE")
+    if ord(escape) > 0x7F:  # measured on v2.0.1: 'é', '€' and U+1F600 are all a syntax error
+        ctx.refuse(node, "DuckDB's LIKE takes only a one-byte (ASCII) escape character")
     static = em.static_like_error(node)
     if isinstance(static, ErrorClass):
         return em.guarded(ENGINE, node, args, [(t.boolean(True), static)], typed_null(B))
@@ -583,7 +585,7 @@ CAPABILITIES: dict[str, Capability] = {
     "upper": Capability("not_pushable", _CASE_MAPPING),
     "lower": Capability("not_pushable", _CASE_MAPPING),
     "round": Capability("conditional", "int64: digits a literal; float64: digits absent or the literal 0"),
-    "like": Capability("conditional", "with escape: the escape a literal other than % and _"),
+    "like": Capability("conditional", "with escape: the escape an ASCII literal other than % and _"),
     "and": Capability("faithful", "operands that can raise are probed with TRY, so a false operand absorbs their errors"),
     "or": Capability("faithful", "operands that can raise are probed with TRY, so a true operand absorbs their errors"),
 }
