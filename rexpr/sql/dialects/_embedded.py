@@ -69,8 +69,8 @@ def guarded(engine: Engine, node: TCall, args: Sequence[Tree], checks: Sequence[
     """``CASE WHEN <any arg null> THEN NULL WHEN check THEN <raise> ... ELSE value END``.
 
     The null clause is needed when a check could fire with some argument null, when ``value``
-    itself does not give null for a null argument (``nulls_first``), and whenever two
-    arguments can raise, to fix their order. It is left out for one argument (each check is
+    itself does not give null for a null argument (``nulls_first``), whenever two
+    arguments can raise, to fix their order, and when an argument can raise beside a check. It is left out for one argument (each check is
     then null when the argument is), when no argument can be null, and when the caller says
     no check can fire with a null argument."""
     kind = node.type.kind
@@ -78,7 +78,9 @@ def guarded(engine: Engine, node: TCall, args: Sequence[Tree], checks: Sequence[
     flags = [(a, may_raise(a, engine), typed.type.nullable) for a, typed in zip(args, node.args)]
     risky = sum(1 for _, r, _ in flags if r)
     nullable = any(n for _, _, n in flags) and (nulls_first or (bool(checks) and not checks_reject_nulls))
-    if len(args) > 1 and (nullable or risky > 1):
+    # A check may read only some arguments (``b = 0``); when another argument can raise, its
+    # error must still come first, as in the reference, so every argument is evaluated first.
+    if len(args) > 1 and (nullable or risky > 1 or (risky and checks)):
         # Arguments that can neither be null nor raise need no test.
         tested = [a for a, r, n in flags if r or n] or [args[0]]
         pairs.append((any_null(engine, tested), null_result if null_result is not None else engine.null(kind)))
