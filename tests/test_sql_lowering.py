@@ -330,6 +330,10 @@ ARGUMENT_BEFORE_CHECK = [
     ("div(abs(-9223372036854775808), 0)", {}, "out_of_range"),
     ("sqrt(x) / 0.0", {"x": ("float64", [-4.0])}, "invalid_argument"),
     ("abs(a) % 0", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    # SQLite's ends_with answers an empty suffix without reading the text; '' is no bool
+    # (ISO/IEC 9075-2 6.13, 22018).
+    ("ends_with(cast(cast('' as bool) as string), '')", {}, "invalid_cast"),
+    ("starts_with(cast(cast(s as bool) as string), '')", {"s": ("string", ["maybe"])}, "invalid_cast"),
 ]
 
 

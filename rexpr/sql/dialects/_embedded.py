@@ -78,9 +78,10 @@ def guarded(engine: Engine, node: TCall, args: Sequence[Tree], checks: Sequence[
     flags = [(a, may_raise(a, engine), typed.type.nullable) for a, typed in zip(args, node.args)]
     risky = sum(1 for _, r, _ in flags if r)
     nullable = any(n for _, _, n in flags) and (nulls_first or (bool(checks) and not checks_reject_nulls))
-    # A check may read only some arguments (``b = 0``); when another argument can raise, its
-    # error must still come first, as in the reference, so every argument is evaluated first.
-    if len(args) > 1 and (nullable or risky > 1 or (risky and checks)):
+    # A check may read only some arguments (``b = 0``), and a ``nulls_first`` value may not read
+    # them all (ends_with(s, '') is true without s); when an argument can raise, its error must
+    # still come first, as in the reference, so every argument is evaluated first.
+    if len(args) > 1 and (nullable or risky > 1 or (risky and (checks or nulls_first))):
         # Arguments that can neither be null nor raise need no test.
         tested = [a for a, r, n in flags if r or n] or [args[0]]
         pairs.append((any_null(engine, tested), null_result if null_result is not None else engine.null(kind)))
