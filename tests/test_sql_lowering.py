@@ -29,7 +29,6 @@ from engines_support import DEEP_SHAPES, NULL_BESIDE_ERROR, deepest_lowered, ope
 from rexpr.catalogue import CAST_RULES, ENTRIES, FunctionSpec
 from rexpr.compare import same_result
 from rexpr.engines.base import Runner, SqlItem
-from rexpr.engines.failures import EngineError
 from rexpr.errors import InputProblem, NotPushable, Span
 from rexpr.reference.evaluator import evaluate_row
 from rexpr.reference.tables import evaluate_table, field_values

@@ -28,7 +28,6 @@ import pytest
 import rexpr
 from engines_support import DEEP_SHAPES, NULL_BESIDE_ERROR, deepest_lowered, open_runner
 from rexpr.catalogue import CAST_RULES, ENTRIES, FunctionSpec
-from rexpr.catalogue.model import ErrorClass
 from rexpr.compare import same_result
 from rexpr.corpus import load_corpora
 from rexpr.engines.base import Runner, SqlItem

@@ -24,7 +24,6 @@ from rexpr.backends import LOCAL_BACKENDS, get_backend
 from rexpr.compare import result_type_problem, row_differences
 from rexpr.differential.cases import Batch, DiffCase
 from rexpr.errors import NotPushable, RexprError
-from rexpr.evaluation import Evaluation
 from rexpr.typed import functions_used
 from rexpr.values import EngineLimit, RowError
 
