@@ -309,6 +309,32 @@ def test_untaken_raise_never_fires_and_constants_do_not_fold_into_errors(engine:
     assert empty_result.to_pylist() == []
 
 
+# coalesce is lazy: ISO/IEC 9075-2 6.12 defines COALESCE(V1, V2) as CASE WHEN V1 IS NOT NULL
+# THEN V1 ELSE V2 END, so V2 is not evaluated on a row where V1 is not null. The second
+# argument repeats a subtree that raises (DuckDB v2.0.1 hoisted such subtrees out of COALESCE
+# and evaluated them on every row); the first case is the differential tester's repro.
+COALESCE_LAZY = [
+    ("coalesce(a, div(10, b) + div(10, b))", {"a": ("int64", [1, None, 3]), "b": ("int64", [0, 2, 0])}),
+    ("abs(coalesce(a, div(10, b) * div(10, b)))", {"a": ("int64", [-1, None]), "b": ("int64", [0, 5])}),
+    ("coalesce(0.0, y - cast('' as float64))", {"y": ("float64", [1.0, None])}),
+]
+
+
+@pytest.mark.parametrize("text, columns", COALESCE_LAZY, ids=[c[0] for c in COALESCE_LAZY])
+def test_coalesce_skips_a_repeated_subtree_that_raises(engine: tuple[str, Runner], text: str,
+                                                       columns: dict) -> None:
+    name, runner = engine
+    try:
+        rexpr.compile(text, {k: v[0] for k, v in columns.items()}).to_sql(name)
+    except NotPushable as refused:
+        pytest.skip(f"not pushable to {name}: {refused}")
+    compiled, table, result = _run(runner, text, columns)
+    expected = evaluate_table(compiled.tree, table).to_pylist()  # oracle: the reference evaluator
+    assert not any(isinstance(e, RowError) for e in expected)
+    assert [same_result(e, o) for e, o in zip(expected, result.to_pylist())] == [True] * len(expected), \
+        f"{name} gave {result.to_pylist()!r}; SQL: {to_sql(compiled.tree, name)[:1500]}"
+
+
 # An error beside a null: the cases (and their sources) are in engines_support.py.
 @pytest.mark.parametrize("text, columns, error", NULL_BESIDE_ERROR, ids=[c[0] for c in NULL_BESIDE_ERROR])
 def test_an_error_beats_a_null_operand(engine: tuple[str, Runner], text: str, columns: dict, error: str) -> None:
