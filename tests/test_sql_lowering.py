@@ -359,6 +359,10 @@ ARGUMENT_BEFORE_CHECK = [
     # (ISO/IEC 9075-2 6.13, 22018).
     ("ends_with(cast(cast('' as bool) as string), '')", {}, "invalid_cast"),
     ("starts_with(cast(cast(s as bool) as string), '')", {"s": ("string", ["maybe"])}, "invalid_cast"),
+    # SQLite's replace checked the search text (the second argument) before the first was
+    # evaluated, so a negative substring length (2201X) beat abs(-2^63)'s 22003.
+    ("replace(substring(null, null, abs(-9223372036854775808)), substring('', 0, -1), null)", {},
+     "out_of_range"),
 ]
 
 

@@ -365,9 +365,11 @@ def _substring_checked(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree
 
 def _replace(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     # replace() treats a search that starts with NUL as empty, and returns the text unchanged
-    # for an empty search even when the replacement is NULL: nulls are decided first.
-    value = em.guarded(ENGINE, node, args, [], t.call("replace", *args), nulls_first=True)
-    return t.case((_has_nul(args[1]), limit("nul")), default=value)
+    # for an empty search even when the replacement is NULL: nulls are decided first. The NUL
+    # test comes after that clause, which evaluates every argument in order whenever one of
+    # them can raise, so an error in the text is not preceded by the search's NUL limit or error.
+    value = t.case((_has_nul(args[1]), limit("nul")), default=t.call("replace", *args))
+    return em.guarded(ENGINE, node, args, [], value, nulls_first=True)
 
 
 def _blob(x: Tree) -> Tree:
