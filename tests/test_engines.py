@@ -31,7 +31,9 @@ from rexpr.engines.mapping import TypeMismatch
 from rexpr.engines.settings import CONFIG_VARIABLE, ServerSettings, server_settings
 from rexpr.engines.statement import SelectBuilder, select_items
 from rexpr.errors import EngineUnavailable, InputProblem
+from rexpr.reference.tables import evaluate_table
 from rexpr.schema import Schema
+from rexpr.sql.lowering import lower
 from rexpr.types import BOOL, FLOAT64, INT64, INT64_MAX, INT64_MIN, STRING, DataType, Kind
 from rexpr.values import EngineLimit, RowError
 
@@ -732,3 +734,25 @@ def test_borrowed_connection_reports_an_engine_limit_as_a_typed_error() -> None:
     error = info.value
     assert (error.code, error.reason, error.engine) == ("engine_limit", "nul", "sqlite")
     assert "U+0000" in error.message and "local" in error.message
+
+
+def test_duckdb_probe_finds_failing_rows_in_few_statements() -> None:
+    # Division by zero on every third row, and int64 overflow where a + 1 passes 2^63 - 1
+    # (ISO/IEC 9075-2 22012 and 22003): the TRY probe gives the same outcome per row as
+    # bisecting, in 2 statements plus one per distinct failing input value.
+    a = [0, 1, 2] * 40 + [9223372036854775807, None]
+    table = pa.table({"a": pa.array(a, pa.int64())})
+    compiled = rexpr.compile("div(100, a) + a + 1", {"a": "int64"})
+    item = SqlItem("q", lower(compiled.tree, "duckdb"), INT64)
+    expected = evaluate_table(compiled.tree, table).to_pylist()  # oracle: the reference evaluator
+    outcomes = {}
+    for probing in (True, False):
+        runner = open_runner("duckdb")
+        runner.probes_rows = probing
+        try:
+            [outcomes[probing]] = runner.evaluate(table, [item])
+        finally:
+            runner.close()
+        assert_same(expected, outcomes[probing].to_pylist())
+    assert outcomes[True].statements == 2 + 2  # the zero rows share one run, the overflow row has its own
+    assert outcomes[False].statements > 40

@@ -27,7 +27,7 @@ from sqlglot import exp
 
 from rexpr.engines.failures import (DriverFailure, EngineError, StatementFailed, UnstorableInput,
                                     classify_failure, failure_from_exception, row_outcome)
-from rexpr.engines.layout import TABLE_NAME, InputLayout, layout_of
+from rexpr.engines.layout import TABLE_NAME, InputLayout, layout_of, row_keys
 from rexpr.engines.locate import DEFAULT_MAX_STATEMENTS, ItemOutcome, locate
 from rexpr.engines.mapping import TypeMismatch, ValueRules, map_values
 from rexpr.engines.statement import SelectBuilder, probe_names
@@ -135,7 +135,27 @@ class Runner(ABC):
                                           engine=self.name, sql=sql)
                 return columns
 
-            located = locate(run, self._row_error, len(group), row_count, engine=self.name, max_statements=budget)
+            probe_builder: list[SelectBuilder] = []
+
+            def probe(indexes: Sequence[int], lo: int, hi: int,
+                      group: range = group) -> Sequence[tuple[object, Sequence[int]]]:
+                if not probe_builder:  # printed only when some statement fails
+                    probe_builder.append(SelectBuilder([self._probe_expression(items[i].expression) for i in group],
+                                                       TABLE_NAME, layout.row_number, self.dialect))
+                sql = probe_builder[0].sql([group[i] for i in indexes],
+                                           None if (lo, hi) == (0, row_count) else (lo, hi))
+                columns = self._fetch(sql, len(indexes))
+                if any(len(column) != hi - lo for column in columns):  # type: ignore[arg-type]
+                    raise EngineError(f"{self.name} returned the wrong number of rows for a probe",
+                                      engine=self.name, sql=sql)
+                return [self._probed(column) for column in columns]
+
+            def keys(index: int, group: range = group) -> list[tuple]:
+                expression = items[group[index]].expression
+                return row_keys(layout, {c.name for c in expression.find_all(exp.Column) if not c.table})
+
+            located = locate(run, self._row_error, len(group), row_count, engine=self.name, max_statements=budget,
+                             probe=probe if self.probes_rows else None, row_keys=keys)
             budget -= located.statements
             results += [self._assemble(items[i], outcome, row_count, losses, located.statements)
                         for i, outcome in zip(group, located.outcomes)]
@@ -189,6 +209,18 @@ class Runner(ABC):
 
     def _map(self, column: object, data_type: DataType) -> tuple[pa.Array, dict[int, TypeMismatch]]:
         return map_values(column, data_type, self.rules)  # type: ignore[arg-type]
+
+    # An engine that can evaluate an expression per row without failing the statement sets
+    # ``probes_rows`` and implements the two hooks below (see rexpr.engines.locate).
+    probes_rows = False
+
+    def _probe_expression(self, expression: exp.Expression) -> exp.Expression:
+        """An expression whose value marks the rows where ``expression`` fails."""
+        raise NotImplementedError
+
+    def _probed(self, column: object) -> tuple[object, Sequence[int]]:
+        """The values column of a probe's result column, and the rows where it failed."""
+        raise NotImplementedError
 
     def _failure(self, exc: BaseException) -> DriverFailure:
         return failure_from_exception(self.name, exc)

@@ -11,6 +11,8 @@ from __future__ import annotations
 from typing import Any, Sequence
 
 import pyarrow as pa
+import pyarrow.compute as pc
+from sqlglot import exp
 
 from rexpr.engines.base import Losses, Runner
 from rexpr.engines.failures import StatementFailed, UnstorableInput
@@ -80,6 +82,19 @@ class DuckDBRunner(Runner):
         except Exception as exc:  # noqa: BLE001 - every driver error is examined by the bisect
             raise StatementFailed(self._failure(exc), sql) from None
         return [result.column(i) for i in range(result.num_columns)]
+
+    # TRY(x) is null on the rows where x raises (and only there: the struct around x is not
+    # null even when x is), so one statement finds every failing row.
+    probes_rows = True
+
+    def _probe_expression(self, expression: exp.Expression) -> exp.Expression:
+        field = exp.PropertyEQ(this=exp.to_identifier("v"), expression=expression.copy())
+        return exp.Anonymous(this="TRY", expressions=[exp.Anonymous(this="STRUCT_PACK", expressions=[field])])
+
+    def _probed(self, column: object) -> tuple[object, Sequence[int]]:
+        chunked: pa.ChunkedArray = column  # type: ignore[assignment]
+        failing = pc.indices_nonzero(pc.is_null(chunked)).to_pylist()
+        return pc.struct_field(chunked, "v"), failing
 
     def _map(self, column: object, data_type: DataType) -> tuple[pa.Array, dict[int, TypeMismatch]]:
         return map_arrow(column, data_type, self.rules)  # type: ignore[arg-type]
