@@ -99,12 +99,14 @@ def locate(run: Run, classify: Classify, item_count: int, row_count: int, *, eng
                 continue
             if probe is not None and (len(items) > 1 or hi - lo > 1):
                 statements += 1
+                # Probed once: afterwards only single (row, item) pairs are left, or the engine
+                # could not probe this statement and bisecting goes on.
+                ask, probe = probe, None
                 try:
-                    probed = probe(items, lo, hi)
+                    probed = ask(items, lo, hi)
                 except StatementFailed:
-                    probe = None  # the engine cannot probe this statement: bisect
+                    pass
                 else:
-                    probe = None  # once: what is left are single (row, item) pairs
                     for index, (column, offsets) in zip(items, probed):
                         failing = {lo + offset for offset in offsets}
                         outcomes[index].pieces += _slices(column, lo, hi, failing)
