@@ -674,3 +674,26 @@ def test_duckdb_refuses_an_escape_it_cannot_take(escape: str) -> None:
     tree = rexpr.compile(f"s like 'a{escape}%' escape '{escape}'", {"s": "string"}).tree
     with pytest.raises(NotPushable, match="ASCII"):
         to_sql(tree, "duckdb")
+
+
+# The differential tester's repros (seed 4): DuckDB's common-subexpression pass computed a
+# repeated right-hand subtree before the left operand, so its error came first. The reference
+# evaluates operands left to right (docs/semantics.md, "Errors are values"); sqrt(-1) and
+# ln(-2.5) are 2201F (ISO/IEC 9075-2 6.28), the others 22012 and 22018.
+DUCKDB_ERROR_ORDER = [
+    ("ln(y) <> power(0.0, 0.0 % 0.0)", {"y": ("float64", [-2.5, 0.0])}),
+    ("sqrt(-1.0) in (nullif(cast('' as float64), cast(null as float64)))", {}),
+    ("case when is_nan(sqrt(-1.0)) then cast(null as date) end > nullif(cast('' as date), cast(null as date))", {}),
+]
+
+
+@pytest.mark.parametrize("text, columns", DUCKDB_ERROR_ORDER, ids=[c[0] for c in DUCKDB_ERROR_ORDER])
+def test_duckdb_left_operand_error_comes_first(text: str, columns: dict) -> None:
+    runner = open_runner("duckdb")
+    try:
+        compiled, table, result = _run(runner, text, columns)
+    finally:
+        runner.close()
+    expected = evaluate_table(compiled.tree, table).to_pylist()  # oracle: the reference evaluator
+    assert all(isinstance(e, RowError) and e.error.value == "invalid_argument" for e in expected)
+    assert [same_result(e, o) for e, o in zip(expected, result.to_pylist())] == [True] * len(expected)

@@ -31,7 +31,9 @@ What the faithful lowering works around, each measured on DuckDB v2.0.1:
 * Common subexpressions: a subtree that occurs twice inside COALESCE (or any function or
   operator, but not inside CASE) is computed once for every row before the COALESCE runs, so
   ``coalesce(y, r + r)`` raises where ``r`` raises even on rows where y is not null. A
-  COALESCE with a later argument that can raise is written as a CASE.
+  COALESCE with a later argument that can raise is written as a CASE. The pass also changes
+  which of two errors comes first (the hoisted subtree runs before the operands left of it),
+  so the SQL assumes it is disabled.
 * Statistics: ``x IS NULL``, comparisons and ``coalesce`` are folded from what DuckDB knows of
   x's values, without evaluating x. A null test of an x that can raise is written
   ``x IS NOT DISTINCT FROM NULL`` (not folded), and a CASE whose conditions can raise gets a
@@ -704,6 +706,9 @@ PROFILE = DialectProfile(
     session_settings=(
         "SET default_collation = ''",  # binary: text compares by UTF-8 bytes, which is code point order
         "SET integer_division = false",  # '/' on integers is not used, but keep its meaning fixed
+        # Hoisted repeated subtrees are evaluated first, so an operand's error could beat an
+        # earlier operand's (ln(y) <> power(0.0, 0.0 % 0.0) gave division_by_zero).
+        "SET disabled_optimizers = 'common_subexpressions'",
     ),
     faithful=FAITHFUL,
     native=NATIVE,
