@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import struct
 from dataclasses import dataclass
 
 from rexpr.catalogue.model import ErrorClass
@@ -80,3 +81,11 @@ def show_value(value: object) -> str:
     if isinstance(value, dt.date):
         return f"date '{format_date(value)}'"
     return repr(value)
+
+
+def identity_key(value: object) -> object:
+    """A hashable key equal only for the same value of the same type; floats by their bits,
+    so -0.0 is not 0.0 and NaN payloads differ."""
+    if isinstance(value, float):
+        return ("float", struct.pack("<d", value))
+    return (type(value).__name__, value)

@@ -48,6 +48,7 @@ from rexpr.printing import literal_text
 from rexpr.schema import Schema
 from rexpr.typed import TCall, TField, TLiteral, Typed
 from rexpr.types import INT64_MAX, INT64_MIN, SCALAR_KINDS, DataType, Kind
+from rexpr.values import identity_key
 
 if TYPE_CHECKING:
     from hypothesis.strategies import SearchStrategy
@@ -393,17 +394,11 @@ def tables(schema: Schema | Any, min_rows: int = 1, max_rows: int = 8) -> "Searc
 
 
 # ------------------------------------------------------------------------------- comparison
-def _exact(value: object) -> object:
-    if isinstance(value, float):
-        return ("float", struct.pack("<d", value))  # -0.0 differs from 0.0; NaN bits compare
-    return (type(value).__name__, value)
-
-
 def structure(node: Typed) -> tuple:
     """A span-free form of a tree that compares floats by their bits (so -0.0 is not 0.0),
     for checking that trees built from different texts are the same."""
     if isinstance(node, TLiteral):
-        return ("literal", node.type, _exact(node.value))
+        return ("literal", node.type, identity_key(node.value))
     if isinstance(node, TField):
         return ("field", node.path, node.type)
     return ("call", node.function, node.type, tuple(structure(a) for a in node.args))

@@ -4,7 +4,6 @@ its canonical Arrow type, plus a row-number column for ordering and bisecting.""
 
 from __future__ import annotations
 
-import struct
 from dataclasses import dataclass
 
 import numpy as np
@@ -14,6 +13,7 @@ import pyarrow.compute as pc
 from rexpr.errors import InputProblem
 from rexpr.schema import Schema, to_arrow_type
 from rexpr.types import DataType, Kind
+from rexpr.values import identity_key
 
 TABLE_NAME = "rexpr_input"
 ROW_NUMBER_BASE = "rexpr_row"
@@ -84,14 +84,8 @@ def _row_number_name(taken: set[str]) -> str:
 def row_keys(layout: InputLayout, names: set[str]) -> list[tuple]:
     """Per row, the values of the named columns, equal only for rows that hold the same values
     there (floats by their bits, so -0.0 is not 0.0 and NaN payloads differ)."""
-    columns = [[_exact(v) for v in c.values.to_pylist()] for c in layout.columns if c.name in names]
+    columns = [[identity_key(v) for v in c.values.to_pylist()] for c in layout.columns if c.name in names]
     return list(zip(*columns)) if columns else [()] * layout.row_count
-
-
-def _exact(value: object) -> object:
-    if isinstance(value, float):
-        return ("float", struct.pack("<d", value))
-    return (type(value).__name__, value)
 
 
 def float_rows(values: pa.Array, *, nan: bool = False, infinite: bool = False,
