@@ -135,15 +135,12 @@ class Runner(ABC):
                                           engine=self.name, sql=sql)
                 return columns
 
-            probe_builder: list[SelectBuilder] = []
-
             def probe(indexes: Sequence[int], lo: int, hi: int,
                       group: range = group) -> Sequence[tuple[object, Sequence[int]]]:
-                if not probe_builder:  # printed only when some statement fails
-                    probe_builder.append(SelectBuilder([self._probe_expression(items[i].expression) for i in group],
-                                                       TABLE_NAME, layout.row_number, self.dialect))
-                sql = probe_builder[0].sql([group[i] for i in indexes],
-                                           None if (lo, hi) == (0, row_count) else (lo, hi))
+                # Called at most once per group, after a failed statement: printed only then.
+                builder = SelectBuilder([self._probe_expression(items[group[i]].expression) for i in indexes],
+                                        TABLE_NAME, layout.row_number, self.dialect)
+                sql = builder.sql(range(len(indexes)), None if (lo, hi) == (0, row_count) else (lo, hi))
                 columns = self._fetch(sql, len(indexes))
                 if any(len(column) != hi - lo for column in columns):  # type: ignore[arg-type]
                     raise EngineError(f"{self.name} returned the wrong number of rows for a probe",

@@ -30,10 +30,9 @@ What the faithful lowering works around, each measured on DuckDB v2.0.1:
   (``greatest``, which evaluates them all).
 * Common subexpressions: a subtree that occurs twice inside COALESCE (or any function or
   operator, but not inside CASE) is computed once for every row before the COALESCE runs, so
-  ``coalesce(y, r + r)`` raises where ``r`` raises even on rows where y is not null. A
-  COALESCE with a later argument that can raise is written as a CASE. The pass also changes
-  which of two errors comes first (the hoisted subtree runs before the operands left of it),
-  so the SQL assumes it is disabled.
+  ``coalesce(y, r + r)`` raises where ``r`` raises even on rows where y is not null, and it
+  changes which of two errors comes first (the hoisted subtree runs before the operands left
+  of it). The SQL assumes the pass is disabled (a session setting).
 * Statistics: ``x IS NULL``, comparisons and ``coalesce`` are folded from what DuckDB knows of
   x's values, without evaluating x. A null test of an x that can raise is written
   ``x IS NOT DISTINCT FROM NULL`` (not folded), and a CASE whose conditions can raise gets a
@@ -381,16 +380,9 @@ def _case(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
 
 
 def _coalesce(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
-    """COALESCE is lazy, but DuckDB's common-subexpression pass hoists a subtree that occurs
-    twice inside it and evaluates it for every row; it does not look inside CASE. So when a
-    later argument can raise, the same choice is written as a CASE, with null tests that
-    statistics cannot fold."""
-    if len(args) == 1:
-        return args[0]
-    if not any(_risky(a) for a in args[1:]):
-        return t.call("coalesce", *args)
-    pairs = [(t.not_(is_null(a)), a) for a in args[:-1]]
-    return t.case(*pairs, default=args[-1])
+    # Lazy: later arguments only where needed (with the common-subexpression pass off, which
+    # otherwise hoists repeated subtrees out of COALESCE and runs them on every row).
+    return args[0] if len(args) == 1 else t.call("coalesce", *args)
 
 
 # ---------------------------------------------------------------------------------- strings
