@@ -234,15 +234,15 @@ def run_sql(batch: Batch, state: EngineState, lowering: str, expected: Expected)
             results.append(_result(case, engine, lowering, "failed", reason=expected[case.case_id]))
             continue
         try:
-            expression = lower(case.tree, engine, lowering)  # type: ignore[arg-type]
-            sqls[case.case_id] = expression.sql(dialect=dialect)  # what the engine runs, for the report
+            item = SqlItem(f"c{index}", lower(case.tree, engine, lowering), case.tree.type)  # type: ignore[arg-type]
+            sqls[case.case_id] = item.text(dialect)  # what the engine runs, for the report
         except NotPushable as exc:
             results.append(_result(case, engine, lowering, "not_pushable", reason=exc.message))
             continue
         except Exception as exc:  # noqa: BLE001 - a lowering bug fails this case only
             results.append(_result(case, engine, lowering, "failed", reason=f"lowering failed: {_describe(exc)}"))
             continue
-        items.append(SqlItem(f"c{index}", expression, case.tree.type))
+        items.append(item)
         lowered.append(case)
     if not items:
         return results

@@ -48,6 +48,16 @@ class SqlItem:
     alias: str                   # the caller's name for the result; not sent to the engine
     expression: exp.Expression   # a SELECT-list expression over columns named by dotted field path
     type: DataType               # the canonical type the result must map to
+    # Printing a large faithful tree costs milliseconds, and the caller, the statement builder
+    # and the result all want the text: printed once per dialect.
+    _printed: dict[str, str] = field(default_factory=dict, compare=False, repr=False)
+
+    def text(self, dialect: str) -> str:
+        """The expression as the dialect's SQL text (printed once, then remembered)."""
+        printed = self._printed.get(dialect)
+        if printed is None:
+            printed = self._printed[dialect] = self.expression.sql(dialect=dialect)
+        return printed
 
 
 @dataclass(frozen=True)
@@ -118,7 +128,8 @@ class Runner(ABC):
         losses = self._load(layout)
         self._verify_names(layout)
         _check_columns(self.name, items, layout)
-        builder = SelectBuilder([item.expression for item in items], TABLE_NAME, layout.row_number, self.dialect)
+        builder = SelectBuilder([item.text(self.dialect) for item in items], TABLE_NAME, layout.row_number,
+                                self.dialect)
         row_count = layout.row_count
         per_statement = max(1, min(items_per_statement or self.max_items, self.max_items))
         results: list[EngineEvaluation] = []
@@ -138,7 +149,7 @@ class Runner(ABC):
             def probe(indexes: Sequence[int], lo: int, hi: int,
                       group: range = group) -> Sequence[tuple[object, Sequence[int]]]:
                 # Called at most once per group, after a failed statement: printed only then.
-                builder = SelectBuilder([self._probe_expression(items[group[i]].expression) for i in indexes],
+                builder = SelectBuilder([self._probe_text(items[group[i]].text(self.dialect)) for i in indexes],
                                         TABLE_NAME, layout.row_number, self.dialect)
                 sql = builder.sql(range(len(indexes)), None if (lo, hi) == (0, row_count) else (lo, hi))
                 columns = self._fetch(sql, len(indexes))
@@ -211,8 +222,8 @@ class Runner(ABC):
     # ``probes_rows`` and implements the two hooks below (see rexpr.engines.locate).
     probes_rows = False
 
-    def _probe_expression(self, expression: exp.Expression) -> exp.Expression:
-        """An expression whose value marks the rows where ``expression`` fails."""
+    def _probe_text(self, text: str) -> str:
+        """SQL whose value marks the rows where the expression ``text`` (as printed) fails."""
         raise NotImplementedError
 
     def _probed(self, column: object) -> tuple[object, Sequence[int]]:
@@ -277,7 +288,7 @@ class Runner(ABC):
         errors = {row: e for row, e in outcome.errors.items() if isinstance(e, RowError)}
         limits = {row: e for row, e in outcome.errors.items() if isinstance(e, EngineLimit)}
         return EngineEvaluation(item.alias, Evaluation(item.type, values, errors), mismatches,
-                                _item_losses(item, losses), item.expression.sql(dialect=self.dialect), statements,
+                                _item_losses(item, losses), item.text(self.dialect), statements,
                                 limits)
 
 

@@ -43,8 +43,9 @@ def select_items(expressions: Sequence[exp.Expression], table: str, row_number: 
 class SelectBuilder:
     """The same statements as :func:`select_items`, with each item printed only once."""
 
-    def __init__(self, expressions: Sequence[exp.Expression], table: str, row_number: str, dialect: str) -> None:
-        self._items = [e.sql(dialect=dialect) for e in expressions]
+    def __init__(self, expressions: Sequence[exp.Expression | str], table: str, row_number: str, dialect: str) -> None:
+        # An item given as text is taken as already printed in this dialect.
+        self._items = [e if isinstance(e, str) else e.sql(dialect=dialect) for e in expressions]
         self._table = quoted(table, dialect)
         self._row = quoted(row_number, dialect)
         self._aliases = [quoted(alias_of(p), dialect) for p in range(len(expressions))]
