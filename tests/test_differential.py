@@ -41,7 +41,7 @@ from rexpr.differential.shrink import shrink
 from rexpr.differential.summary import (REPORT_FORMAT, REPORT_VERSION, alert, build_document, evidence_from)
 from rexpr.planner.evidence import load_evidence
 from rexpr.runs import ALL_ENGINES
-from rexpr.schema import Schema
+from rexpr.schema import Schema, to_arrow_type
 from rexpr.typed import TCall, walk
 
 LOWERINGS = ("faithful", "native")
@@ -781,3 +781,24 @@ def test_check_shows_engine_limit_rows_plainly():
     assert data["status"] == "limited" and data["disagreements"] == []
     assert {r["engine_limit"] for r in data["limited_rows"]} == {"nan"}
     assert {r["expected"] for r in data["limited_rows"]} == {"NaN"}
+
+
+def test_sql_the_engines_own_parser_refuses_is_not_pushable_in_the_tester_too():
+    # Generated seed 5, case 17747: its faithful SQLite SQL (about 290 KB) overflows SQLite's
+    # fixed parser stack. to_sql refuses it as not pushable; the tester must say the same, not
+    # report the engine as failed. Oracle: SQLite itself (sqlite3 compiling the statement).
+    from rexpr.differential.campaign import GENERATED_SCHEMA
+    from rexpr.sql.lowering import to_sql
+
+    text = "substring(cast(cast(substring('\u0301', 1, i) as timestamp) as string), j, floor(position(t, '+5')))"
+    tree = rexpr.compile(text, GENERATED_SCHEMA).tree
+    with pytest.raises(rexpr.NotPushable, match="parser"):
+        to_sql(tree, "sqlite")
+    table = pa.table({name: pa.nulls(2, to_arrow_type(t)) for name, t in GENERATED_SCHEMA.fields})
+    batch = Batch("deep", "generated", GENERATED_SCHEMA, table, (DiffCase("deep/0", "generated", text, tree),))
+    states = open_engines(["reference", "sqlite"])
+    try:
+        [result] = [r for r in run_batch(batch, states, ["faithful"]) if r.engine == "sqlite"]
+    finally:
+        close_engines(states)
+    assert result.outcome == "not_pushable" and "parser stack overflow" in result.reason, result

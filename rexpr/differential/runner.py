@@ -223,7 +223,7 @@ def run_local(batch: Batch, state: EngineState, expected: Expected) -> list[Case
 
 def run_sql(batch: Batch, state: EngineState, lowering: str, expected: Expected) -> list[CaseResult]:
     from rexpr.engines.base import SqlItem
-    from rexpr.sql.lowering import dialect_of, lower
+    from rexpr.sql.lowering import check_engine_parser, dialect_of, lower
 
     engine = state.name
     dialect = dialect_of(engine).sqlglot_dialect
@@ -236,6 +236,8 @@ def run_sql(batch: Batch, state: EngineState, lowering: str, expected: Expected)
         try:
             item = SqlItem(f"c{index}", lower(case.tree, engine, lowering), case.tree.type)  # type: ignore[arg-type]
             sqls[case.case_id] = item.text(dialect)  # what the engine runs, for the report
+            # The refusal to_sql gives for SQL the engine's own parser cannot take (SQLite's stack).
+            check_engine_parser(f"SELECT {sqls[case.case_id]}", engine, case.tree)
         except NotPushable as exc:
             results.append(_result(case, engine, lowering, "not_pushable", reason=exc.message))
             continue

@@ -325,7 +325,15 @@ def _check_single_select(text: str, profile: DialectProfile, depth: int, node: T
         raise NotPushable(f"generated {dialect} SQL does not parse back: {exc}") from None
     if len(statements) != 1 or not isinstance(statements[0], exp.Select):
         raise NotPushable(f"generated {dialect} SQL is not exactly one SELECT statement")
+    check_engine_parser(text, profile.name, node, depth)
+
+
+def check_engine_parser(text: str, engine: str, node: Typed, depth: int | None = None) -> None:
+    """Raises NotPushable when the engine's own parser refuses ``text`` for a limit of its own
+    (SQLite's fixed parser stack), which no nesting depth predicts; a no-op for other engines."""
+    profile = dialect_of(engine)
     problem = profile.parse_problem(text) if profile.parse_problem is not None else None
     if problem:
+        levels = f" ({depth} levels)" if depth is not None else ""
         raise NotPushable(f"expression nests {call_depth(node)} calls deep and {profile.name}'s own SQL parser "
-                          f"refuses its SQL ({depth} levels): {problem}; evaluate it locally")
+                          f"refuses its SQL{levels}: {problem}; evaluate it locally")
