@@ -34,7 +34,9 @@ LAZY = frozenset({"and", "or", "case", "coalesce"})
 
 def _case_is_null(node: TCall, nulls: list[bool], constant: list[bool]) -> bool:
     """Every branch a row can take is null. A constant condition decides for every row, as
-    the engines' planners also see (``CASE WHEN true THEN NULL ELSE x END`` folds to NULL)."""
+    the engines' planners also see (``CASE WHEN true THEN NULL ELSE x END`` folds to NULL),
+    and so does a condition that is null on every row: PostgreSQL folds ``CASE WHEN NULL AND
+    (NULL <= a) THEN a END`` to NULL (generated seed 6, case 6703)."""
     args = node.args
     for i in range(0, len(args) - 1, 2):
         if constant[i]:
@@ -44,6 +46,8 @@ def _case_is_null(node: TCall, nulls: list[bool], constant: list[bool]) -> bool:
             if taken is not True:
                 continue
             return nulls[i + 1]
+        if nulls[i]:
+            continue  # a condition null on every row is never taken
         if not nulls[i + 1]:
             return False
     return nulls[-1]
