@@ -309,6 +309,19 @@ def test_untaken_raise_never_fires_and_constants_do_not_fold_into_errors(engine:
     assert empty_result.to_pylist() == []
 
 
+def test_a_raise_construct_quoted_beside_the_failing_one_is_still_a_row_error(engine: tuple[str, Runner]) -> None:
+    # pow(-2, -0.5) is invalid (IEEE 754-2019 9.2.1: finite x < 0, finite non-integer y). DuckDB's
+    # message quotes the SQL around the failing cast, here the division's own raise construct
+    # (generated seed 6 cases 2860 and 8045 were refused as a whole for it).
+    name, runner = engine
+    columns = {"x": ("float64", [1.0, 2.0]), "y": ("float64", [-2.0, 4.0])}
+    compiled, table, result = _run(runner, "power(y, x / y)", columns)
+    expected = evaluate_table(compiled.tree, table).to_pylist()  # oracle: the reference evaluator
+    assert isinstance(expected[0], RowError) and expected[0].error.value == "invalid_argument"
+    assert [same_result(e, o) for e, o in zip(expected, result.to_pylist())] == [True, True], \
+        f"{name} gave {result.to_pylist()!r}"
+
+
 # coalesce is lazy: ISO/IEC 9075-2 6.12 defines COALESCE(V1, V2) as CASE WHEN V1 IS NOT NULL
 # THEN V1 ELSE V2 END, so V2 is not evaluated on a row where V1 is not null. The second
 # argument repeats a subtree that raises (DuckDB v2.0.1 hoisted such subtrees out of COALESCE
