@@ -62,7 +62,7 @@ def open_copy(engine: str, table: pa.Table) -> ServerCopy | Skipped:
         return Skipped(engine, f"{engine}: connection settings are invalid ({exc.message}); skipped")
     try:
         # The runner's own connect: same timeouts, same driver options, same error text.
-        connection = get_engine(engine, settings=settings)._open()
+        connection = get_engine(engine, settings=settings).connect()
     except EngineUnavailable as exc:
         reason = exc.message.partition(" is not reachable: ")[2] or exc.message
         if reason.startswith("(") and reason.endswith(")"):  # PyMySQL shows its error as a tuple

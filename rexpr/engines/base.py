@@ -187,6 +187,11 @@ class Runner(ABC):
     def __exit__(self, *exc_info: object) -> None:
         self.close()
 
+    def connect(self) -> Any:
+        """A new connection of the caller's own (to close), opened as the runner opens its own:
+        same timeouts, driver options and error text. No session settings are applied."""
+        return self._open()
+
     def adopt(self, connection: Any) -> "Runner":
         """Run on a connection the caller opened (and will close); applies the session settings."""
         self.close()
