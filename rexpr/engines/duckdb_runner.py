@@ -23,6 +23,7 @@ from rexpr.engines.layout import TABLE_NAME, InputLayout
 from rexpr.engines.mapping import TypeMismatch, ValueRules, map_arrow
 from rexpr.engines.statement import drop_table, quoted
 from rexpr.errors import EngineUnavailable
+from rexpr.sql.dialects.duckdb import PROFILE
 from rexpr.types import DataType
 
 _SOURCE = "rexpr_source"
@@ -33,7 +34,7 @@ warnings.filterwarnings("ignore", message="Arrow output on a DB-API result", cat
 # The common-subexpression pass computes a repeated subtree once, before the expression it was
 # taken from, so an operand that raises can beat an earlier one's error (measured on v2.0.1):
 # the faithful SQL assumes it is off (rexpr.sql.dialects.duckdb).
-SESSION = ("SET TimeZone = 'UTC'", "SET disabled_optimizers = 'common_subexpressions'")
+SESSION = PROFILE.session_settings  # the settings the lowering documents are the ones applied
 # Settings the SQL may depend on; each is read back from duckdb_settings() when it exists.
 _REPORTED = ("TimeZone", "disabled_optimizers", "default_collation", "integer_division", "threads", "default_null_order",
              "default_order", "errors_as_json")

@@ -28,20 +28,14 @@ from rexpr.engines.layout import TABLE_NAME, InputLayout, float_rows
 from rexpr.engines.mapping import ValueRules
 from rexpr.engines.settings import ServerSettings, server_settings
 from rexpr.engines.statement import create_table, drop_table, quoted
+from rexpr.sql.dialects.mariadb import PROFILE
 from rexpr.errors import EngineUnavailable
 from rexpr.types import Kind
 
 COLUMN_TYPES = {Kind.BOOL: "BOOLEAN", Kind.INT64: "BIGINT", Kind.FLOAT64: "DOUBLE",
                 Kind.STRING: "LONGTEXT CHARACTER SET utf8mb4 COLLATE utf8mb4_bin", Kind.DATE: "DATE",
                 Kind.TIMESTAMP: "DATETIME(6)"}
-# NO_BACKSLASH_ESCAPES is deliberately absent: the lowering (sqlglot's mysql dialect) escapes
-# backslashes in string literals, and PyMySQL's own escaping assumes the same.
-SQL_MODE = "STRICT_ALL_TABLES,ERROR_FOR_DIVISION_BY_ZERO,NO_ZERO_DATE,NO_ZERO_IN_DATE,NO_ENGINE_SUBSTITUTION"
-SESSION = (
-    "SET NAMES utf8mb4 COLLATE utf8mb4_bin",
-    f"SET SESSION sql_mode = '{SQL_MODE}'",
-    "SET SESSION time_zone = '+00:00'",
-)
+SESSION = PROFILE.session_settings  # the settings the lowering documents are the ones applied
 _REPORTED = ("version", "sql_mode", "time_zone", "character_set_connection", "collation_connection",
              "character_set_results", "div_precision_increment", "max_statement_time", "max_allowed_packet")
 _INSERT_BATCH = 5000  # rows per executemany call; PyMySQL splits further by packet size

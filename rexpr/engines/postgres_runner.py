@@ -20,20 +20,14 @@ from rexpr.engines.mapping import ValueRules
 from rexpr.engines.settings import ServerSettings, server_settings
 from rexpr.engines.statement import create_table, drop_table, quoted
 from rexpr.errors import EngineUnavailable
+from rexpr.sql.dialects.postgres import PROFILE
 from rexpr.types import Kind
 
 COLUMN_TYPES = {Kind.BOOL: "boolean", Kind.INT64: "bigint", Kind.FLOAT64: "double precision",
                 Kind.STRING: 'text COLLATE "C"', Kind.DATE: "date", Kind.TIMESTAMP: "timestamp(6)"}
 _COPY_TYPES = {Kind.BOOL: "bool", Kind.INT64: "int8", Kind.FLOAT64: "float8", Kind.STRING: "text",
                Kind.DATE: "date", Kind.TIMESTAMP: "timestamp"}
-SESSION = (
-    "SET TIME ZONE 'UTC'",
-    "SET extra_float_digits = 3",           # exact float text output, should any text be read
-    "SET standard_conforming_strings = on",  # backslash is an ordinary character in '...'
-    "SET DateStyle = 'ISO, YMD'",
-    "SET IntervalStyle = 'iso_8601'",
-    "SET client_encoding = 'UTF8'",
-)
+SESSION = PROFILE.session_settings  # the settings the lowering documents are the ones applied
 _REPORTED = ("TimeZone", "extra_float_digits", "standard_conforming_strings", "DateStyle", "IntervalStyle",
              "client_encoding", "server_encoding", "lc_collate", "lc_ctype", "statement_timeout")
 

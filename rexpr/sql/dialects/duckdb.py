@@ -703,7 +703,8 @@ DIVERGENCES: tuple[Divergence, ...] = (
 PROFILE = DialectProfile(
     name="duckdb",
     sqlglot_dialect=D,
-    session_settings=(
+    session_settings=(  # applied by the runner, in this order
+        "SET TimeZone = 'UTC'",  # timestamps are zone-less UTC; casts never shift them
         "SET default_collation = ''",  # binary: text compares by UTF-8 bytes, which is code point order
         "SET integer_division = false",  # '/' on integers is not used, but keep its meaning fixed
         # Hoisted repeated subtrees are evaluated first, so an operand's error could beat an

@@ -71,6 +71,9 @@ from rexpr.types import INT64_MAX, INT64_MIN, DataType, Kind
 from rexpr.values import RowError
 
 D = "mysql"
+# NO_BACKSLASH_ESCAPES is deliberately absent: the lowering (sqlglot's mysql dialect) escapes
+# backslashes in string literals, and PyMySQL's own escaping assumes the same.
+SQL_MODE = "STRICT_ALL_TABLES,ERROR_FOR_DIVISION_BY_ZERO,NO_ZERO_DATE,NO_ZERO_IN_DATE,NO_ENGINE_SUBSTITUTION"
 Tree = t.Tree
 B, I, F, S, DATE, TS = Kind.BOOL, Kind.INT64, Kind.FLOAT64, Kind.STRING, Kind.DATE, Kind.TIMESTAMP
 CAST_TYPES = {B: "SIGNED", I: "SIGNED", F: "DOUBLE", S: "CHAR", DATE: "DATE", TS: "DATETIME(6)", Kind.NULL: "CHAR"}
@@ -926,9 +929,9 @@ DIVERGENCES: tuple[Divergence, ...] = (
 PROFILE = DialectProfile(
     name="mariadb",
     sqlglot_dialect=D,
-    session_settings=(
+    session_settings=(  # applied by the runner, in this order
         "SET NAMES utf8mb4 COLLATE utf8mb4_bin",
-        "SET SESSION sql_mode = 'STRICT_ALL_TABLES,ERROR_FOR_DIVISION_BY_ZERO,NO_ENGINE_SUBSTITUTION'",
+        f"SET SESSION sql_mode = '{SQL_MODE}'",
         "SET SESSION time_zone = '+00:00'",
     ),
     faithful=FAITHFUL,

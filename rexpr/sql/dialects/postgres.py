@@ -697,10 +697,12 @@ DIVERGENCES: tuple[Divergence, ...] = (
 PROFILE = DialectProfile(
     name="postgres",
     sqlglot_dialect=D,
-    session_settings=(
+    session_settings=(  # applied by the runner, in this order
         "SET TIME ZONE 'UTC'",
         "SET extra_float_digits = 3",            # float8 text is the shortest round-trip digits
         "SET standard_conforming_strings = on",  # a backslash in a literal is just a backslash
+        "SET DateStyle = 'ISO, YMD'",
+        "SET IntervalStyle = 'iso_8601'",
         "SET client_encoding = 'UTF8'",
     ),
     faithful=FAITHFUL,
