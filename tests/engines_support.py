@@ -145,4 +145,13 @@ NULL_BESIDE_ERROR = [
     # 22003). 1e19 rather than the case's -inf, which MariaDB cannot store.
     ("cast(x as int64) < case when cast(null as int64) between cast(null as int64) and a then a end",
      {"x": ("float64", [1e19]), "a": ("int64", [1])}, "out_of_range"),
+    # The same case at full size: this CASE's condition is false on every row (0 >= 2^63 - 1 is
+    # false, ISO/IEC 9075-2 8.3: BETWEEN is x >= lo AND x <= hi), so it is null, and both DuckDB
+    # and PostgreSQL fold the comparison beside the raising cast.
+    ("cast(x as int64) >= case when 0 between 9223372036854775807 and i then i end",
+     {"x": ("float64", [1e19]), "i": ("int64", [-7])}, "out_of_range"),
+    ("coalesce(b, substring(case when b then 'NaN' end, nullif(j, i), cast(x as int64)) >= "
+     "case when 0 between 9223372036854775807 and i then s end)",
+     {"b": ("bool", [None]), "j": ("int64", [1]), "i": ("int64", [2]), "x": ("float64", [1e19]),
+      "s": ("string", ["a"])}, "out_of_range"),
 ]

@@ -21,9 +21,12 @@ of that decision: which typed subtrees can only be null (when they do not raise)
 
 from __future__ import annotations
 
+import operator
+from typing import Callable
+
 from rexpr.reference.evaluator import evaluate_row
 from rexpr.reference.functions import PLAIN
-from rexpr.typed import TCall, TField, TLiteral, Typed
+from rexpr.typed import TCall, TField, TLiteral, Typed, walk
 from rexpr.values import RowError
 
 # Null if any argument is null (the reference evaluates these through one generic path).
@@ -46,11 +49,47 @@ def _case_is_null(node: TCall, nulls: list[bool], constant: list[bool]) -> bool:
             if taken is not True:
                 continue
             return nulls[i + 1]
-        if nulls[i]:
-            continue  # a condition null on every row is never taken
+        if nulls[i] or never_true(args[i]):
+            continue  # a condition never true is never taken
         if not nulls[i + 1]:
             return False
     return nulls[-1]
+
+
+def _reads_field(node: Typed) -> bool:
+    return any(isinstance(n, TField) for n in walk(node))
+
+
+def _constant_not_true(a: Typed, b: Typed, holds: Callable[[object, object], bool]) -> bool:
+    """``a`` and ``b`` read no field and ``holds(a, b)`` is false or null (neither raises)."""
+    if _reads_field(a) or _reads_field(b):
+        return False
+    x, y = evaluate_row(a, {}), evaluate_row(b, {})
+    if isinstance(x, RowError) or isinstance(y, RowError):
+        return False
+    return x is None or y is None or not holds(x, y)
+
+
+def never_true(node: Typed) -> bool:
+    """True when the bool ``node`` is false or null on every row where it does not raise. A
+    CASE never takes a branch with such a condition, and PostgreSQL's planner drops it: ``0
+    between 9223372036854775807 and i`` is ``false AND (0 <= i)``, folded to false (generated
+    seed 6, case 6703). Conservative: False unless one of the forms below shows it."""
+    if not _reads_field(node):
+        value = evaluate_row(node, {})
+        return value is not True and not isinstance(value, RowError)
+    if always_null(node):
+        return True
+    if not isinstance(node, TCall):
+        return False
+    if node.function == "and":
+        return any(never_true(a) for a in node.args)  # false absorbs the other operands
+    if node.function == "or":
+        return all(never_true(a) for a in node.args)
+    if node.function == "between":
+        x, lo, hi = node.args
+        return _constant_not_true(x, lo, operator.ge) or _constant_not_true(x, hi, operator.le)
+    return False
 
 
 def _null_given(node: TCall, nulls: list[bool], constant: list[bool]) -> bool:
