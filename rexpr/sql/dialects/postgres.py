@@ -25,8 +25,9 @@ database encoding UTF8, libc locale C.UTF-8, ICU 72):
   catalogue's invalid-escape error is checked before matching. An escape that is a row value
   goes through ``like_escape(pattern, escape)``, which is what ``ESCAPE <expression>`` means.
 * A COLLATE clause makes a result's collation explicit, and two different explicit
-  collations in one operation are an error (42P21); the results of upper/lower (ICU) are
-  returned through a scalar subquery, whose output is implicit again.
+  collations in one operation are an error (42P21), and so are two different implicit ones;
+  the results of upper/lower (ICU) are collated "C" in a scalar subquery, whose output is
+  implicit "C" like every column.
 * ``'\\t12\\n'::bigint`` is 12 (whitespace is trimmed), ``'-nan'::float8`` is NaN; the cast
   table trims U+0020 only, so strings are validated with regular expressions first.
 * float8 text output (extra_float_digits >= 1) is the shortest round-trip digits, but
@@ -293,10 +294,15 @@ def _substring(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
 
 
 def _case_mapped(fn: str, s: Tree) -> Tree:
-    """upper/lower under the ICU root collation. The COLLATE clause makes the result's
-    collation explicit, and PostgreSQL refuses to compare or join it with another explicit
-    one (42P21); a scalar subquery's output is implicit again."""
-    return exp.Subquery(this=exp.Select(expressions=[t.call(fn, t.collate(s, UNICODE_CASE))]))
+    """upper/lower under the ICU root collation, returned as text of the columns' collation.
+
+    The COLLATE clause makes the result's collation explicit, and PostgreSQL refuses to
+    combine it with another explicit one (42P21); a scalar subquery's output is implicit
+    again, but an implicit ICU collation beside an implicit "C" column is refused too ("could
+    not determine which collation to use", generated seed 11: ``starts_with(upper(t), t)``).
+    So the mapped text is collated "C" inside the subquery, like every column."""
+    mapped = t.collate(t.call(fn, t.collate(s, UNICODE_CASE)), CODE_POINT)
+    return exp.Subquery(this=exp.Select(expressions=[mapped]))
 
 
 def _ends_with(node: TCall, s: Tree, suffix: Tree) -> Tree:
