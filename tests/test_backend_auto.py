@@ -157,6 +157,24 @@ def test_float_to_int_rounds_half_away_at_the_int64_edges():
     assert _mismatches("cast(x as int64) > 0 or x > 0.0", table, schema, block_rows=4) == []
 
 
+def test_int64_arithmetic_with_a_literal_operand_at_the_overflow_bounds():
+    # A literal operand takes a range test instead of the general overflow check, and a
+    # product near +-2^63 the exact check; every result outside [-2^63, 2^63 - 1] is an
+    # out_of_range error (ISO/IEC 9075-2 6.27, 22003). 3037000499 is floor(sqrt(2^63 - 1))
+    # (from memory; Python's math.isqrt confirms it below). Oracle: the reference evaluator.
+    import math
+    assert math.isqrt(2 ** 63 - 1) == 3037000499
+    edges = [-2 ** 63, -2 ** 63 + 1, -2 ** 62, -3037000500, -3037000499, -7, -1, 0, 1, 2, 7,
+             3037000499, 3037000500, 2 ** 62, 2 ** 63 - 2, 2 ** 63 - 1, None]
+    pairs = [(a, b) for a in edges for b in edges]
+    table = pa.table({"a": pa.array([a for a, _ in pairs], pa.int64()), "b": pa.array([b for _, b in pairs], pa.int64())})
+    schema = Schema.from_mapping({"a": "int64", "b": "int64"})
+    for text in ["a * b", "a * 3", "3 * a", "a * -1", "-1 * a", "a * 0", "a * -9223372036854775808",
+                 "a * 3037000499", "a + 5", "5 + a", "a + -9223372036854775808", "a + 9223372036854775807",
+                 "a - b", "a - 5", "a - -9223372036854775808", "a - 9223372036854775807", "0 - a", "-a"]:
+        assert _mismatches(text, table, schema, block_rows=64) == [], text
+
+
 def test_substring_at_the_int64_bounds():
     # Source: ISO/IEC 9075-2 6.30 <character substring function> (E = S + L; L < 0 is 22011;
     # S > length or E < 1 gives the empty string), worked out in Python's unbounded ints.

@@ -25,6 +25,7 @@ import pyarrow.compute as pc
 
 from rexpr.backends import arrow as arrow_backend
 from rexpr.backends import auto_vectors as vx
+from rexpr.backends.auto_scratch import ScratchSet
 from rexpr.backends.auto_vectors import FAST_KINDS, Vec
 from rexpr.errors import EvaluationFailed, InputProblem
 from rexpr.evaluation import ERROR_CODES, Evaluation
@@ -313,31 +314,38 @@ class Prepared:
     block_rows: int
     threads: int
 
-    def _map(self, function: Callable[[pa.RecordBatch], object], blocks: list[pa.RecordBatch]) -> list:
-        if self.threads <= 1 or len(blocks) <= 1:
-            return [function(b) for b in blocks]
-        return list(_pool().map(function, blocks))
+    def _map(self, function: Callable[[pa.RecordBatch, ScratchSet], object], blocks: list[pa.RecordBatch]) -> list:
+        scratch = ScratchSet()  # this call's reusable buffers, dropped when it ends
+        try:
+            if self.threads <= 1 or len(blocks) <= 1:
+                return [function(b, scratch) for b in blocks]
+            return list(_pool().map(lambda b: function(b, scratch), blocks))
+        finally:
+            scratch.close()
 
     def _run(self, rows: pa.RecordBatch):
         block = Block(rows, arrow_backend.Frame(rows, rows.num_rows))
         with np.errstate(all="ignore"):  # garbage in null rows may overflow; it is discarded
             return self.root.run(block)
 
-    def _values(self, rows: pa.RecordBatch) -> tuple[pa.Array, np.ndarray | None]:
-        result = self._run(rows)
-        if self.root.numeric:
-            return vx.to_arrow(result, self.node.type.kind), result.codes
-        return result.values, result.codes
+    def _values(self, rows: pa.RecordBatch, scratch: ScratchSet) -> tuple[pa.Array, np.ndarray | None]:
+        with scratch.block():
+            result = self._run(rows)
+            if self.root.numeric:  # copied out: the block's buffers are reused by the next block
+                own = Vec(np.array(result.values), result.valid, result.codes)
+                return vx.to_arrow(own, self.node.type.kind), result.codes
+            return result.values, result.codes
 
-    def _keep(self, rows: pa.RecordBatch) -> tuple[np.ndarray, np.ndarray | None]:
+    def _keep(self, rows: pa.RecordBatch, scratch: ScratchSet) -> tuple[np.ndarray, np.ndarray | None]:
         """Where the predicate is true in one block, and the block's error codes."""
-        result = self._run(rows)
-        if self.root.numeric:
-            keep = np.asarray(result.values, dtype=bool)
-            if result.valid is not None:
-                keep = keep & result.valid
-            return keep, result.codes
-        return pc.fill_null(result.values, False).to_numpy(zero_copy_only=False), result.codes
+        with scratch.block():
+            result = self._run(rows)
+            if self.root.numeric:
+                keep = np.array(result.values, dtype=bool)  # a copy, as in _values
+                if result.valid is not None:
+                    keep &= result.valid
+                return keep, result.codes
+            return pc.fill_null(result.values, False).to_numpy(zero_copy_only=False), result.codes
 
     def __call__(self, data: pa.Table | pa.RecordBatch) -> Evaluation:
         parts = self._map(self._values, _blocks(data, self.block_rows))

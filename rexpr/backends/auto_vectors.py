@@ -17,9 +17,10 @@ from typing import Callable, Sequence
 import numpy as np
 import pyarrow as pa
 
+from rexpr.backends.auto_scratch import empty
 from rexpr.catalogue.model import ErrorClass
 from rexpr.evaluation import CODE_OF
-from rexpr.types import INT64_MIN, Kind
+from rexpr.types import INT64_MAX, INT64_MIN, Kind
 
 OUT_OF_RANGE = CODE_OF[ErrorClass.OUT_OF_RANGE]
 DIVISION_BY_ZERO = CODE_OF[ErrorClass.DIVISION_BY_ZERO]
@@ -136,42 +137,101 @@ def _broadcast(values: np.ndarray) -> bool:
     return len(values) > 1 and values.strides == (0,)
 
 
+def _length(*xs: object) -> int:
+    return next(len(x) for x in xs if np.ndim(x))  # plain() keeps at least one full array
+
+
 def _float(op: Callable) -> Kernel:
+    """A kernel without errors of its own whose result is bool."""
     return lambda *xs: (op(*xs), [])
 
 
+def _into(op: Callable, dtype: type) -> Callable:
+    """``op`` writing its 8-byte result into a buffer of the block's scratch."""
+    return lambda *xs: op(*xs, out=empty(dtype, _length(*xs)))
+
+
+def _float_arith(op: Callable) -> Kernel:
+    into = _into(op, np.float64)
+    return lambda *xs: (into(*xs), [])
+
+
+_add, _sub, _mul = _into(np.add, np.int64), _into(np.subtract, np.int64), _into(np.multiply, np.int64)
+_xor = _into(np.bitwise_xor, np.int64)
+
+
+def _sign_flips(a, b, r) -> np.ndarray:
+    """Where ``(a ^ r) & (b ^ r)`` is negative: r's sign differs from both a's and b's."""
+    flips = _xor(a, r)
+    return np.bitwise_and(flips, _xor(b, r), out=flips) < 0
+
+
 def _int_add(x, y):
-    r = x + y
-    return r, [(OUT_OF_RANGE, ((x ^ r) & (y ^ r)) < 0)]  # sign flipped against both operands
+    r = _add(x, y)
+    if np.ndim(y) == 0 or np.ndim(x) == 0:  # a literal operand: the overflow is a range of the other
+        c, v = (int(y), x) if np.ndim(y) == 0 else (int(x), y)
+        return r, [(OUT_OF_RANGE, v > INT64_MAX - c if c > 0 else v < INT64_MIN - c)]
+    return r, [(OUT_OF_RANGE, _sign_flips(x, y, r))]  # sign flipped against both operands
 
 
 def _int_subtract(x, y):
-    r = x - y
-    return r, [(OUT_OF_RANGE, ((x ^ y) & (x ^ r)) < 0)]
+    r = _sub(x, y)
+    if np.ndim(y) == 0:
+        c = int(y)
+        return r, [(OUT_OF_RANGE, x < INT64_MIN + c if c > 0 else x > INT64_MAX + c)]
+    if np.ndim(x) == 0:
+        return r, [(OUT_OF_RANGE, ((x ^ y) & (x ^ r)) < 0)]
+    flips = _xor(x, y)  # the operands' signs differ and the result's differs from x's
+    return r, [(OUT_OF_RANGE, np.bitwise_and(flips, _xor(x, r), out=flips) < 0)]
 
 
 def _int_multiply(x, y):
-    r = x * y  # modulo 2^64; exact exactly when r / x gives back y with no remainder
-    usable = (x != 0) & (x != -1)
-    quotient, remainder = np.divmod(r, np.where(usable, x, 1))
-    over = (usable & ((quotient != y) | (remainder != 0))) | ((x == -1) & (y == INT64_MIN))
+    r = _mul(x, y)  # modulo 2^64
+    if np.ndim(y) == 0 or np.ndim(x) == 0:  # a literal factor: the exact product's range is a range of x
+        return r, [(OUT_OF_RANGE, _outside_product_range(x, y) if np.ndim(y) == 0 else _outside_product_range(y, x))]
+    # The float64 product is within a factor 1 + 2^-52 of the exact one: far from +-2^63 it
+    # decides; the rows near the bounds (few) are checked exactly by division.
+    approx = np.multiply(x, y, out=empty(np.float64, len(x)), dtype=np.float64)
+    np.abs(approx, out=approx)
+    over = approx >= 2.0 ** 64
+    near = (approx >= 2.0 ** 62) & ~over
+    if near.any():
+        xs, ys, rs = x[near], y[near], r[near]
+        usable = (xs != 0) & (xs != -1)
+        quotient, remainder = np.divmod(rs, np.where(usable, xs, 1))
+        over[near] = (usable & ((quotient != ys) | (remainder != 0))) | ((xs == -1) & (ys == INT64_MIN))
     return r, [(OUT_OF_RANGE, over)]
 
 
+def _outside_product_range(x: np.ndarray, c: object) -> np.ndarray | bool:
+    """Where x * c (c one int64) falls outside int64, as a range of x: exact integer bounds."""
+    c = int(c)  # type: ignore[call-overload]
+    if c == 0:
+        return False
+    low, high = (INT64_MIN, INT64_MAX) if c > 0 else (INT64_MAX, INT64_MIN)
+    least, most = -(-low // c), high // c  # ceil(low / c), floor(high / c)
+    outside = np.zeros(x.shape, dtype=bool)
+    if least > INT64_MIN:
+        outside |= x < least
+    if most < INT64_MAX:
+        outside |= x > most
+    return outside
+
+
 def _int_negate(x):
-    return -x, [(OUT_OF_RANGE, x == INT64_MIN)]
+    return _into(np.negative, np.int64)(x), [(OUT_OF_RANGE, x == INT64_MIN)]
 
 
 def _int_abs(x):
-    return np.abs(x), [(OUT_OF_RANGE, x == INT64_MIN)]
+    return _into(np.abs, np.int64)(x), [(OUT_OF_RANGE, x == INT64_MIN)]
 
 
 def _divide(x, y):
-    return x / y, [(DIVISION_BY_ZERO, y == 0)]  # -0.0 == 0 too (IEEE 754 5.11)
+    return _into(np.divide, np.float64)(x, y), [(DIVISION_BY_ZERO, y == 0)]  # -0.0 == 0 too (IEEE 754 5.11)
 
 
 def _sqrt(x):
-    return np.sqrt(x), [(INVALID_ARGUMENT, x < 0)]  # NaN < 0 is false: sqrt(NaN) = NaN
+    return _into(np.sqrt, np.float64)(x), [(INVALID_ARGUMENT, x < 0)]  # NaN < 0 is false: sqrt(NaN) = NaN
 
 
 INT_KERNELS: dict[str, Kernel] = {
@@ -179,27 +239,43 @@ INT_KERNELS: dict[str, Kernel] = {
     "negate": _int_negate, "abs": _int_abs,
 }
 FLOAT_KERNELS: dict[str, Kernel] = {
-    "add": _float(np.add), "subtract": _float(np.subtract), "multiply": _float(np.multiply),
-    "negate": _float(np.negative), "abs": _float(np.abs), "divide": _divide, "sqrt": _sqrt,
-    "floor": _float(np.floor), "ceil": _float(np.ceil), "is_nan": _float(np.isnan),
+    "add": _float_arith(np.add), "subtract": _float_arith(np.subtract), "multiply": _float_arith(np.multiply),
+    "negate": _float_arith(np.negative), "abs": _float_arith(np.abs), "divide": _divide, "sqrt": _sqrt,
+    "floor": _float_arith(np.floor), "ceil": _float_arith(np.ceil), "is_nan": _float(np.isnan),
 }
 COMPARE_KERNELS: dict[str, Kernel] = {
     "eq": _float(np.equal), "ne": _float(np.not_equal), "lt": _float(np.less),
     "le": _float(np.less_equal), "gt": _float(np.greater), "ge": _float(np.greater_equal),
 }
+
+
 def _float_to_int(x):
     """Round half away from zero (rexpr/catalogue/casts.py): x - trunc(x) is exact in binary64
     (Sterbenz), so the tie test is exact. NaN, ±inf and values outside int64 are errors."""
-    whole = np.trunc(x)
-    rounded = np.where(np.abs(x - whole) >= 0.5, whole + np.copysign(1.0, x), whole)
+    n = len(x)
+    rounded = np.trunc(x, out=empty(np.float64, n))
+    fraction = np.subtract(x, rounded, out=empty(np.float64, n))
+    away = (fraction >= 0.5) | (fraction <= -0.5)
+    # Branch-free (np.where is slow on a mask that varies row by row): add +-1 or +-0.
+    rounded += np.copysign(away, x, out=fraction)
     fits = (rounded >= -(2.0 ** 63)) & (rounded < 2.0 ** 63)  # false for NaN; 2^63 - 1 is no float64
-    return np.where(fits, rounded, 0.0).astype(np.int64), [(OUT_OF_RANGE, ~fits)]
+    out = empty(np.int64, n)
+    np.copyto(out, rounded, casting="unsafe")  # garbage on the error rows only
+    return out, [(OUT_OF_RANGE, ~fits)]
+
+
+def _converted(dtype: type) -> Kernel:
+    def kernel(x):
+        out = empty(dtype, len(x))
+        np.copyto(out, x, casting="unsafe")
+        return out, []
+    return kernel
 
 
 CAST_KERNELS: dict[tuple[Kind, Kind], Kernel] = {
     (Kind.FLOAT64, Kind.INT64): _float_to_int,
-    (Kind.INT64, Kind.FLOAT64): _float(lambda x: x.astype(np.float64)),  # round to nearest even
-    (Kind.BOOL, Kind.INT64): _float(lambda x: x.astype(np.int64)),
+    (Kind.INT64, Kind.FLOAT64): _converted(np.float64),  # round to nearest even
+    (Kind.BOOL, Kind.INT64): _converted(np.int64),
     (Kind.INT64, Kind.BOOL): _float(lambda x: x != 0),
 }
 NOT_KERNEL: Kernel = _float(np.logical_not)
