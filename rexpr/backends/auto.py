@@ -17,7 +17,7 @@ import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
-from typing import Callable, Iterable, Iterator, Sequence
+from typing import Callable, Iterable, Iterator, Sequence, TypeVar
 
 import numpy as np
 import pyarrow as pa
@@ -34,6 +34,9 @@ from rexpr.schema import to_arrow_type
 from rexpr.temporal_range import check_temporal_range, temporal_fields
 from rexpr.typed import TField, TLiteral, Typed
 from rexpr.types import Kind
+
+T = TypeVar("T")
+R = TypeVar("R")
 
 BLOCK_ROWS = 64 * 1024  # 512 KiB per float64 column: a block's intermediates fit in L2
 THREADS = max(1, min(2, os.cpu_count() or 1))
@@ -314,12 +317,14 @@ class Prepared:
     block_rows: int
     threads: int
 
-    def _map(self, function: Callable[[pa.RecordBatch, ScratchSet], object], blocks: list[pa.RecordBatch]) -> list:
+    def _map(self, function: Callable[[T, ScratchSet], R], items: list[T]) -> list[R]:
+        """``function`` over one item per block, results in order, on the thread pool when
+        there is more than one block."""
         scratch = ScratchSet()  # this call's reusable buffers, dropped when it ends
         try:
-            if self.threads <= 1 or len(blocks) <= 1:
-                return [function(b, scratch) for b in blocks]
-            return list(_pool().map(lambda b: function(b, scratch), blocks))
+            if self.threads <= 1 or len(items) <= 1:
+                return [function(item, scratch) for item in items]
+            return list(_pool().map(lambda item: function(item, scratch), items))
         finally:
             scratch.close()
 
@@ -336,16 +341,19 @@ class Prepared:
                 return vx.to_arrow(own, self.node.type.kind), result.codes
             return result.values, result.codes
 
-    def _keep(self, rows: pa.RecordBatch, scratch: ScratchSet) -> tuple[np.ndarray, np.ndarray | None]:
-        """Where the predicate is true in one block, and the block's error codes."""
+    def _keep(self, rows: pa.RecordBatch, scratch: ScratchSet, out: np.ndarray) -> np.ndarray | None:
+        """Writes where the predicate is true in one block to ``out`` (that block's slice of the
+        whole mask, so no per-block masks are held and joined); returns the error codes."""
         with scratch.block():
             result = self._run(rows)
             if self.root.numeric:
-                keep = np.array(result.values, dtype=bool)  # a copy, as in _values
-                if result.valid is not None:
-                    keep &= result.valid
-                return keep, result.codes
-            return pc.fill_null(result.values, False).to_numpy(zero_copy_only=False), result.codes
+                if result.valid is None:
+                    out[:] = result.values
+                else:
+                    np.logical_and(result.values, result.valid, out=out)
+            else:
+                out[:] = pc.fill_null(result.values, False).to_numpy(zero_copy_only=False)
+            return result.codes
 
     def __call__(self, data: pa.Table | pa.RecordBatch) -> Evaluation:
         parts = self._map(self._values, _blocks(data, self.block_rows))
@@ -362,13 +370,15 @@ class Prepared:
         """Boolean mask of the rows to keep; raises :class:`EvaluationFailed` on any row error
         (an error beats a guess), naming the row counted from ``first_row``."""
         _require_predicate(self.node)
-        parts = self._map(self._keep, _blocks(data, self.block_rows))
-        offset = first_row
-        for keep, codes in parts:
-            if codes is not None and codes.any():
-                _raise_first(codes, offset)
-            offset += len(keep)
-        return parts[0][0] if len(parts) == 1 else np.concatenate([k for k, _ in parts])
+        blocks = _blocks(data, self.block_rows)
+        starts = np.cumsum([0] + [b.num_rows for b in blocks]).tolist()
+        mask = np.empty(starts[-1], dtype=bool)
+        codes = self._map(lambda item, scratch: self._keep(item[1], scratch, mask[starts[item[0]]:starts[item[0] + 1]]),
+                          list(enumerate(blocks)))
+        for start, block_codes in zip(starts, codes):
+            if block_codes is not None and block_codes.any():
+                _raise_first(block_codes, first_row + start)
+        return mask
 
 
 def _require_predicate(node: Typed) -> None:
