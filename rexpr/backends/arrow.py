@@ -629,17 +629,24 @@ def _build_between(node: TCall, plans: tuple[Plan, ...]) -> Step:
 def _build_coalesce(node: TCall, plans: tuple[Plan, ...]) -> Step:
     def step(frame: Frame) -> Column:
         values: pa.Array | None = None
-        codes = np.zeros(frame.length, dtype=np.int8)
-        pending = np.ones(frame.length, dtype=bool)  # rows with only nulls so far
+        # Rows with only nulls so far, tracked row by row once an argument has errors; until
+        # then they are the nulls of the coalesced values (no NumPy masks in the common case).
+        pending: np.ndarray | None = None
+        codes: Codes | None = None
         for plan in plans:
-            if values is not None and not pending.any():
+            if values is not None and (values.null_count == 0 if pending is None else not pending.any()):
                 break  # later arguments are not evaluated: their errors cannot count
             column = plan.step(frame)
+            if pending is None and column.codes is not None:
+                pending = np.ones(frame.length, dtype=bool) if values is None else ~_valid(values)
+                codes = np.zeros(frame.length, dtype=np.int8)
             values = column.values if values is None else pc.coalesce(values, column.values)
+            if pending is None:
+                continue
             null = ~_valid(column.values)
             if column.codes is not None:
                 failed = pending & (column.codes != 0)
-                codes[failed] = column.codes[failed]
+                codes[failed] = column.codes[failed]  # type: ignore[index]
                 null &= column.codes == 0
             pending &= null
         return _column(values, codes)  # type: ignore[arg-type]
