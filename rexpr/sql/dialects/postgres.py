@@ -54,6 +54,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import sys
 from typing import Callable
 
 from sqlglot import exp
@@ -441,12 +442,43 @@ def _string_to_float(b: Tree) -> Tree:
         default=bind([t.call("lower", t.collate(b, CODE_POINT))], numeral))  # overflow: float8in's 22003
 
 
-def _float_to_string(text: Tree) -> Tree:
+def _shortest(x: Tree, unsigned: Tree) -> Tree:
+    """The shortest numeral that reads back as |x|, from float8out's ``unsigned`` text.
+
+    float8out (Ryu) gives the shortest digits except where the shortest numeral lies exactly on
+    the edge of x's rounding interval, which Python's repr counts as inside for an even
+    significand: 2.111966241167932e+17 prints as 2.1119662411679322e+17 (generated seed 12, case
+    2065). An edge is a short numeral only from 2^53 up, where every float8 is an integer and
+    the edges are integers too; there the fewest digits k whose rounding of the printed value
+    reads back as x are taken (rounding to k digits is the nearest k-digit numeral, so it is in
+    the interval whenever any k-digit numeral is)."""
+    def candidates(r: list[Tree]) -> Tree:
+        value, first = r  # the printed value as NUMERIC, the exponent of its first digit
+        branches = []
+        for k in range(1, 17):
+            rounded = t.call("round", value, t.cast(t.sub(t.number(k - 1), first), "INT", D))
+            # Above the largest float8 the cast would fail; no candidate there reads back (a
+            # CASE, because AND may evaluate its operands in either order).
+            reads_back = t.case((t.gt(rounded, num.numeric(int(sys.float_info.max))), t.boolean(False)),
+                                default=t.eq(t.cast(rounded, "DOUBLE PRECISION", D), num.fabs(x)))
+            branches.append((reads_back, t.cast(rounded, "TEXT", D)))
+        return t.case(*branches, default=unsigned)
+
+    def exponent(r: list[Tree]) -> Tree:
+        digits = t.call("char_length", t.cast(t.call("trunc", r[0]), "TEXT", D))
+        return bind([r[0], t.sub(digits, t.number(1))], candidates)
+
+    return t.case((t.ge(num.fabs(x), num.f8(2.0 ** 53)), bind([t.cast(unsigned, "NUMERIC", D)], exponent)),
+                  default=unsigned)
+
+
+def _float_to_string(x: Tree, text: Tree) -> Tree:
     negative = _matches(text, "^-")
     unsigned = t.case((negative, t.call("substr", text, t.number(2))), default=text)
     return t.case((t.is_null(text), typed_null(S)),
                   (t.in_list(text, [t.string("NaN"), t.string("Infinity"), t.string("-Infinity")]), text),
-                  default=nt.numeral_parts(OPS, unsigned, lambda sig, p: nt.python_repr(OPS, negative, sig, p)))
+                  default=nt.numeral_parts(OPS, _shortest(x, unsigned),
+                                           lambda sig, p: nt.python_repr(OPS, negative, sig, p)))
 
 
 def _timestamp_to_string(ts: Tree) -> Tree:
@@ -490,7 +522,7 @@ def _cast(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
     if pair == (I, S):
         return t.cast(x, "TEXT", D)
     if pair == (F, S):
-        return bind([t.cast(x, "TEXT", D)], lambda r: _float_to_string(r[0]))
+        return bind([x, t.cast(x, "TEXT", D)], lambda r: _float_to_string(r[0], r[1]))
     if pair == (B, S):
         return bind([x], lambda r: t.case((r[0], t.string("TRUE")), (t.not_(r[0]), t.string("FALSE")),
                                           default=typed_null(S)))
