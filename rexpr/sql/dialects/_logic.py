@@ -50,7 +50,7 @@ def reads_fields(node: Typed) -> bool:
     return any(isinstance(n, TField) for n in walk(node))
 
 
-def constant_value(node: TCall) -> tuple[bool, object]:
+def constant_value(node: Typed) -> tuple[bool, object]:
     """(True, value) for a subtree that reads no field, computed by the reference (the value
     may be a :class:`RowError`); (False, None) otherwise.
 
