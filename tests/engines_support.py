@@ -7,6 +7,8 @@ turn into a quietly green run. Mark server tests with ``@pytest.mark.servers``.
 
 from __future__ import annotations
 
+import datetime as dt
+
 import os
 from typing import Iterator
 
@@ -154,4 +156,14 @@ NULL_BESIDE_ERROR = [
      "case when 0 between 9223372036854775807 and i then s end)",
      {"b": ("bool", [None]), "j": ("int64", [1]), "i": ("int64", [2]), "x": ("float64", [1e19]),
       "s": ("string", ["a"])}, "out_of_range"),
+    # Generated seed 6, cases 30553 and 31875, reduced: a null haystack (SQL puts it first) beside
+    # a needle whose length is negative (ISO/IEC 9075-2 6.30: 22011), and a null bound beside a
+    # bound that is no date (6.13: 22007) in a CASE condition.
+    ("position(substring(t, j, -12), case when b then t end)",
+     {"t": ("string", ["abc"]), "j": ("int64", [1]), "b": ("bool", [False])}, "invalid_argument"),
+    ("case when d between cast(null as date) and cast(t as date) then ts end",
+     {"d": ("date", [dt.date(2024, 5, 1)]), "t": ("string", [""]), "ts": ("timestamp", [None])}, "invalid_datetime"),
+    # The shrinker's repro of case 31875: the whole condition is constant and raises.
+    ("case when cast(null as date) between cast(null as date) and cast('' as date) then ts end",
+     {"ts": ("timestamp", [None])}, "invalid_datetime"),
 ]

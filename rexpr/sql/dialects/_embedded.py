@@ -123,8 +123,13 @@ def chain(ctx: LowerContext, node: TCall, operands: Sequence[tuple[Tree, bool]],
         safe = [tree for i, tree in enumerate(trees) if i not in risky]
         if not safe:
             return trees[0]
-        # The safe operands decide first; the risky one is evaluated only when they do not.
-        return t.case((t.or_(*[decide(s) for s in safe]), decisive), default=join(*trees))
+        # The safe operands decide first; the risky one is evaluated only when they do not,
+        # and on its own, in a condition: DuckDB folds an operand it knows is null (d >= NULL)
+        # and then dropped the risky one beside it, with its error (generated seed 6, case 31875).
+        [risky_tree] = [trees[i] for i in risky]
+        return t.case((t.or_(*[decide(s) for s in safe]), decisive),
+                      (engine.is_null(risky_tree), t.null()),
+                      (decide(risky_tree), decisive), default=join(*trees))
     if engine.probe is None:
         ctx.refuse(node, f"{word} with {len(risky)} operands that can raise: {engine.name} cannot evaluate "
                          f"one without risking its error, which a {'false' if conjunction else 'true'} "
