@@ -6,7 +6,8 @@ faster kernel family is chosen once: NumPy (``auto_vectors``) for numeric and bo
 zero-copy views of the Arrow buffers, and the arrow backend's compiled plan for whole subtrees
 that involve strings, dates, casts from or to text and the other complex functions. The tree
 is constant-folded first, and identical subtrees are evaluated once per block. Blocks run on a
-small thread pool: NumPy and Arrow kernels release the GIL.
+small thread pool: NumPy and Arrow kernels release the GIL. Each thread reuses its blocks'
+8-byte result buffers (``auto_scratch``), and a filter's blocks write straight into one mask.
 
 Semantics are the reference's exactly (rexpr/reference/); nothing here is a shortcut.
 """
