@@ -54,6 +54,7 @@ from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.evaluator import evaluate_row
 from rexpr.sql.dialects import _embedded as em, _null_operands as nn, _trees as t
+from rexpr.sql.dialects._planner_constants import planner_value
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.sql.quoting import Quoting, column, string_literal
 from rexpr.typed import TCall, TField, walk
@@ -592,16 +593,16 @@ _FAITHFUL: dict[str, Lowerer] = {
 }
 
 def _constants_folded(lowerer: Lowerer) -> Lowerer:
-    """A subtree that reads no field is its value, computed by the reference, or the raise
-    construct. DuckDB folds constants its own way: the binder types the negation of a constant
+    """A subtree whose value is known without a row (see _planner_constants) is its value,
+    computed by the reference, or the raise construct. DuckDB folds constants its own way: the binder types the negation of a constant
     -2^63 as HUGEINT, which no BIGINT parameter takes (generated seed 6, case 12335:
     ``substring(VARCHAR, HUGEINT)``), and a constant CASE condition that raises gave null
     (case 31875: ``case when null between null and cast('' as date) then ts end``). Measured
     on v2.0.1."""
     def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
-        if _first_column(node) is not None:
+        known, value = planner_value(node)  # also coalesce(0.0, x) and the like
+        if not known:
             return lowerer(ctx, node, args)
-        value = evaluate_row(node, {})
         return raise_(value.error, node.type.kind) if isinstance(value, RowError) else literal(value, node.type)
     return lower
 

@@ -64,6 +64,7 @@ from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.functions import like_regex
 from rexpr.sql.dialects import _case_mapping as cm, _logic, _numeral_text as nt, _trees as t
+from rexpr.sql.dialects._planner_constants import planner_value
 
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.typed import TCall, TLiteral, Typed
@@ -760,7 +761,7 @@ def _guarded(lowerer: Lowerer) -> Lowerer:
     def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
         # A constant subtree becomes its value (or the raise construct): the optimizer then has
         # nothing to fold, and a NaN or infinite constant is the DOUBLE domain limit.
-        constant, value = _logic.constant_value(node)
+        constant, value = planner_value(node)
         if constant:
             if isinstance(value, RowError):
                 return raise_(value.error, node.type.kind)

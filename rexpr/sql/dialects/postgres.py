@@ -64,6 +64,7 @@ from rexpr.errors import NotPushable
 from rexpr.language.datetime_text import format_date, format_timestamp
 from rexpr.reference.functions import like_regex
 from rexpr.sql.dialects import _logic, _null_operands as nn, _numeral_text as nt, _pg_numbers as num, _trees as t
+from rexpr.sql.dialects._planner_constants import planner_value
 from rexpr.sql.profile import Capability, DialectProfile, Divergence, LowerContext, Lowerer
 from rexpr.typed import TCall, TLiteral, Typed
 from rexpr.types import DataType, Kind
@@ -553,7 +554,7 @@ def _guarded(lowerer: Lowerer) -> Lowerer:
     would lose the error the reference gives (see _null_operands). GREATEST evaluates each
     argument, in order, and is not folded."""
     def lower(ctx: LowerContext, node: TCall, args: list[Tree]) -> Tree:
-        constant, value = _logic.constant_value(node)
+        constant, value = planner_value(node)
         if constant:
             if isinstance(value, RowError):
                 return raise_(value.error, node.type.kind)
