@@ -242,6 +242,23 @@ def test_duckdb_and_absorbs_errors_of_two_operands() -> None:
         runner.close()
 
 
+def test_duckdb_power_of_a_signaling_nan() -> None:
+    # The catalogue's power is 1 for y = 0 or x = 1, NaN included (IEEE 754-2019 9.2.1: pow(x,
+    # ±0) is 1 even for a quiet NaN); C's pow gives NaN for a signaling one (6.2). The bits
+    # are a signaling NaN (exponent all ones, quiet bit 51 clear; IEEE 754-2019 3.4) from
+    # generated seed 6, case 45244. Oracle: the reference evaluator.
+    snan = struct.unpack("<d", struct.pack("<Q", 0x7FF669CDCE9946A0))[0]
+    assert math.isnan(snan)
+    runner = open_runner("duckdb")
+    try:
+        for text in ["power(y, 0.0)", "power(1.0, y)", "power(y, -0.0) + y"]:
+            compiled, table, result = _run(runner, text, {"y": ("float64", [snan, 2.0, None])})
+            expected = evaluate_table(compiled.tree, table).to_pylist()
+            assert [same_result(e, o) for e, o in zip(expected, result.to_pylist())] == [True] * 3, text
+    finally:
+        runner.close()
+
+
 def test_sqlite_refuses_and_with_two_risky_operands() -> None:
     tree = rexpr.compile("div(a, b) > 5 and div(b, a) > 5", {"a": "int64", "b": "int64"}).tree
     with pytest.raises(NotPushable, match=r"and\(bool, bool\).*2 operands that can raise"):
