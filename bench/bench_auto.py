@@ -172,7 +172,7 @@ def main() -> None:
             "duck 2": ms(lambda: duck[2][0](text)),
         }
         f = {
-            "auto": ms(lambda: table.filter(pa.array(prepared.keep(table)))),
+            "auto": ms(lambda: prepared.filter(table)),
             "arrow": ms(lambda: compiled.filter(table, "arrow"), max(3, r // 2)),
             "hand pa": ms(lambda: table.filter(hand_arrow(text, table))),
             "duck 1": ms(lambda: duck[1][1](text)),
