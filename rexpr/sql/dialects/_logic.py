@@ -13,12 +13,10 @@ from dataclasses import dataclass
 from typing import Callable
 
 from rexpr.catalogue.model import ErrorClass
-from rexpr.reference.evaluator import evaluate_row
 from rexpr.sql.dialects import _trees as t
 from rexpr.sql.profile import LowerContext
 from rexpr.typed import TCall, TField, TLiteral, Typed, walk
 from rexpr.types import Kind
-from rexpr.values import RowError
 
 Tree = t.Tree
 Comparator = Callable[[Kind, Tree, Tree], Tree]
@@ -48,19 +46,6 @@ def may_raise(node: Typed, sql: ServerSql) -> bool:
 
 def reads_fields(node: Typed) -> bool:
     return any(isinstance(n, TField) for n in walk(node))
-
-
-def constant_value(node: Typed) -> tuple[bool, object]:
-    """(True, value) for a subtree that reads no field, computed by the reference (the value
-    may be a :class:`RowError`); (False, None) otherwise.
-
-    Engines fold constant subexpressions while planning, even inside CASE branches no row
-    takes and inside guards whose conditions the planner cannot see through, so a constant
-    that raises there fails every row. Lowering constants to their value (or to the raise
-    construct) removes the problem at its root."""
-    if reads_fields(node):
-        return False, None
-    return True, evaluate_row(node, {})
 
 
 def literal_value(node: Typed) -> tuple[bool, object]:

@@ -26,7 +26,8 @@ from typing import Callable
 
 from rexpr.reference.evaluator import evaluate_row
 from rexpr.reference.functions import PLAIN
-from rexpr.typed import TCall, TField, TLiteral, Typed, walk
+from rexpr.sql.dialects._logic import reads_fields
+from rexpr.typed import TCall, TField, TLiteral, Typed
 from rexpr.values import RowError
 
 # Null if any argument is null (the reference evaluates these through one generic path).
@@ -56,13 +57,9 @@ def _case_is_null(node: TCall, nulls: list[bool], constant: list[bool]) -> bool:
     return nulls[-1]
 
 
-def _reads_field(node: Typed) -> bool:
-    return any(isinstance(n, TField) for n in walk(node))
-
-
 def _constant_not_true(a: Typed, b: Typed, holds: Callable[[object, object], bool]) -> bool:
     """``a`` and ``b`` read no field and ``holds(a, b)`` is false or null (neither raises)."""
-    if _reads_field(a) or _reads_field(b):
+    if reads_fields(a) or reads_fields(b):
         return False
     x, y = evaluate_row(a, {}), evaluate_row(b, {})
     if isinstance(x, RowError) or isinstance(y, RowError):
@@ -75,7 +72,7 @@ def never_true(node: Typed) -> bool:
     CASE never takes a branch with such a condition, and PostgreSQL's planner drops it: ``0
     between 9223372036854775807 and i`` is ``false AND (0 <= i)``, folded to false (generated
     seed 6, case 6703). Conservative: False unless one of the forms below shows it."""
-    if not _reads_field(node):
+    if not reads_fields(node):
         value = evaluate_row(node, {})
         return value is not True and not isinstance(value, RowError)
     if always_null(node):

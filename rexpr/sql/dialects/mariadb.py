@@ -212,8 +212,8 @@ def _literal(node: Typed) -> object:
 
 
 def _constant_int(node: Typed) -> int | None:
-    """The value of an int64 subtree that reads no field and does not raise, else None."""
-    constant, value = _logic.constant_value(node)
+    """The value of an int64 subtree known without a row that does not raise, else None."""
+    constant, value = planner_value(node)
     return value if constant and isinstance(value, int) and not isinstance(value, bool) else None
 
 
@@ -407,7 +407,7 @@ def _trim(fid: str) -> Lowerer:
         # A constant set counts as a literal: MariaDB compiles a constant pattern while preparing,
         # even in a branch no row takes, and '[]+' from an empty set is no pattern (generated
         # seed 12: ltrim(t, rtrim(cast(j as string), ltrim('  ')))).
-        known, value = _logic.constant_value(chars)
+        known, value = planner_value(chars)
         if known and isinstance(value, str):
             if value == "":
                 return s
