@@ -2,7 +2,7 @@
 DuckDB over the same Arrow table at one and two threads, with the memory-bandwidth floor
 measured in the same run. Medians of several runs; ratios are side by side in this process.
 
-    .venv/bin/python bench/bench_auto.py [--rows 10000000] [--repeat 5]
+    .venv/bin/python bench/bench_auto.py [--rows 10000000] [--repeat 5] [--only TEXT ...]
 
 Columns: "mask" computes the boolean keep-mask, "filter" also materialises the kept rows.
 "floor %" is the time a NumPy sum needs to stream the bytes the filter reads, as a share of
@@ -14,7 +14,9 @@ input columns it reads.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+import tempfile
 import threading
 import time
 import tracemalloc
@@ -30,7 +32,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 from common import make_table, median_time, print_table  # noqa: E402
 
 import rexpr  # noqa: E402
-from rexpr.backends import auto  # noqa: E402
+from rexpr.backends import auto, auto_jit  # noqa: E402
 from rexpr.schema import Schema  # noqa: E402
 
 EXPRESSIONS = [
@@ -141,7 +143,12 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--rows", type=int, default=10_000_000)
     parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--only", action="append", default=[],
+                        help="run only the filters containing this text (repeatable)")
     options = parser.parse_args()
+    # A fresh kernel cache, so the first call of each filter shows numba's whole compile time.
+    os.environ[auto_jit.ENV_CACHE] = tempfile.mkdtemp(prefix="rexpr-bench-jit-")
+    print(f"compiled path (numba): {'on' if auto_jit.available() else 'off (numba not installed)'}")
     table = make_table(options.rows)
     schema = Schema.from_arrow(table.schema)
     cols = numpy_columns(table)
@@ -156,13 +163,19 @@ def main() -> None:
 
     rows_out, summary = [], []
     for text in EXPRESSIONS:
+        if options.only and not any(part in text for part in options.only):
+            continue
         compiled = rexpr.compile(text, schema)
         prepared = auto.prepare(compiled.tree)
         single = auto.prepare(compiled.tree, threads=1)
-        kept = int(prepared.keep(table).sum())
+        numpy_only = auto.prepare(compiled.tree, jit=False)
+        start = time.perf_counter()
+        kept = int(prepared.keep(table).sum())  # the first call compiles the fused kernels (cold cache)
+        first = time.perf_counter() - start
         t = {
             "auto": ms(lambda: prepared.keep(table)),
             "auto 1t": ms(lambda: single.keep(table)),
+            "auto no jit": ms(lambda: numpy_only.keep(table)),
             "auto api": ms(lambda: compiled.mask(table, "auto")),
             "arrow": ms(lambda: compiled.mask(table, "arrow"), max(3, r // 2)),
             "numpy": ms(lambda: compiled.mask(table, "numpy"), max(3, r // 2)),
@@ -181,11 +194,12 @@ def main() -> None:
         floor_ms = read_bytes(table, compiled) / floor * 1000
         peak = peak_extra_bytes(lambda: prepared.keep(table))
         size = read_bytes(table, compiled)
-        rows_out.append([text[:44], f"{kept:,}"] + [f"{t[k]:.0f}" for k in t] + [f"{f[k]:.0f}" for k in f]
+        jit_note = f"{first:.2f} s" if prepared.jit_ops else "none"
+        rows_out.append([text[:44], f"{kept:,}", jit_note] + [f"{t[k]:.0f}" for k in t] + [f"{f[k]:.0f}" for k in f]
                         + [f"{100 * floor_ms / t['auto']:.0f}%", f"{peak / 2**20:.0f}/{size / 2**20:.0f} MiB"])
         summary.append((text, t["duck 1"] / t["auto"], t["duck 2"] / t["auto"], f["duck 1"] / f["auto"],
                         f["duck 2"] / f["auto"], t["arrow"] / t["auto"], floor_ms / t["auto"], peak / size))
-    headers = (["expression", "kept"] + [f"mask {k}" for k in t] + [f"filter {k}" for k in f]
+    headers = (["expression", "kept", "1st call (jit compile)"] + [f"mask {k}" for k in t] + [f"filter {k}" for k in f]
                + ["floor %", "peak extra/input"])
     print("times in ms (median)")
     print_table(headers, rows_out)

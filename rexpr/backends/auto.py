@@ -8,6 +8,8 @@ that involve strings, dates, casts from or to text and the other complex functio
 is constant-folded first, and identical subtrees are evaluated once per block. Blocks run on a
 small thread pool: NumPy and Arrow kernels release the GIL. Each thread reuses its blocks'
 8-byte result buffers (``auto_scratch``), and a filter's blocks write straight into one mask.
+With numba installed, the largest numeric subtrees are also compiled into one fused loop each
+(``auto_jit``, :class:`JitOp`) for inputs large enough to repay the compile.
 
 Semantics are the reference's exactly (rexpr/reference/); nothing here is a shortcut.
 """
@@ -16,6 +18,7 @@ from __future__ import annotations
 
 import os
 import threading
+import warnings
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Callable, Iterable, Iterator, Sequence, TypeVar
@@ -25,6 +28,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from rexpr.backends import arrow as arrow_backend
+from rexpr.backends import auto_jit
 from rexpr.backends import auto_vectors as vx
 from rexpr.backends.auto_scratch import ScratchSet
 from rexpr.backends.auto_vectors import FAST_KINDS, Vec
@@ -185,6 +189,41 @@ class CoalesceOp(Op):
         return chooser.result()
 
 
+class JitOp(Op):
+    """A numeric subtree as one compiled loop (auto_jit), once it is compiled; until then (and
+    for small inputs, which never compile it) the same subtree's NumPy ops."""
+
+    def __init__(self, node: Typed, fallback: Op) -> None:
+        self.node, self.fallback = node, fallback
+        self.fields = [(f.path, to_arrow_type(f.type), f.type.kind) for f in auto_jit.source_of(node).fields]
+        self.kernel: auto_jit.Kernel | None = None
+        self.failed = False
+
+    def compile(self, required: bool) -> None:
+        """Builds the kernel; a failure makes this op keep its NumPy ops, unless the caller
+        asked for the compiled path, which then sees the error."""
+        if self.kernel is not None or self.failed:
+            return
+        try:
+            self.kernel = auto_jit.compile_kernel(self.node)
+        except Exception as exc:  # numba's errors have no common base; the NumPy ops stay exact
+            self.failed = True
+            if required:
+                raise
+            warnings.warn(f"rexpr: the compiled path is off for one subtree ({type(exc).__name__}: {exc})",
+                          RuntimeWarning, stacklevel=2)
+
+    def arguments(self, block: Block) -> list[object]:
+        arrays = [arrow_backend._read_field(block.rows, path, target) for path, target, _ in self.fields]
+        return auto_jit.Kernel.arguments(arrays, [kind for _, _, kind in self.fields])
+
+    def compute(self, block: Block) -> Vec:
+        if self.kernel is None:
+            return self.fallback.run(block)
+        values, valid, codes = self.kernel.values(block.length, self.arguments(block))
+        return Vec(values, valid, codes)
+
+
 class CaseOp(Op):
     def __init__(self, args: Sequence[Op], kind: Kind) -> None:
         self.pairs = [(args[i], args[i + 1]) for i in range(0, len(args) - 1, 2)]
@@ -243,14 +282,25 @@ def _fast(node: Typed) -> bool:
 
 
 class Compiler:
-    def __init__(self) -> None:
+    def __init__(self, jit: bool = False) -> None:
         self.ops: dict[tuple, Op] = {}
+        self.jit = jit
+        self.jit_ops: list[JitOp] = []
 
     def op(self, node: Typed) -> Op:
         key = _key(node)
         found = self.ops.get(key)
         if found is None:
-            found = self.ops[key] = self._build(node)
+            if self.jit and auto_jit.fusable(node):
+                self.jit = False  # the largest fusable subtree is the one kernel; its parts are NumPy ops
+                try:
+                    found = JitOp(node, self._build(node))
+                finally:
+                    self.jit = True
+                self.jit_ops.append(found)
+            else:
+                found = self._build(node)
+            self.ops[key] = found
         return found
 
     def _build(self, node: Typed) -> Op:
@@ -317,6 +367,16 @@ class Prepared:
     node: Typed
     block_rows: int
     threads: int
+    jit: bool | None = None  # None: compile fused kernels for inputs of auto_jit.MIN_ROWS rows or more
+    jit_ops: tuple[JitOp, ...] = ()
+
+    def _arm(self, rows: int) -> None:
+        """Compiles the fused kernels this input is worth (all of them when asked to)."""
+        if self.jit is False:
+            return
+        for op in self.jit_ops:
+            if self.jit or rows >= auto_jit.MIN_ROWS:
+                op.compile(required=bool(self.jit))
 
     def _map(self, function: Callable[[T, ScratchSet], R], items: list[T]) -> list[R]:
         """``function`` over one item per block, results in order, on the thread pool when
@@ -345,6 +405,12 @@ class Prepared:
     def _keep(self, rows: pa.RecordBatch, scratch: ScratchSet, out: np.ndarray) -> np.ndarray | None:
         """Writes where the predicate is true in one block to ``out`` (that block's slice of the
         whole mask, so no per-block masks are held and joined); returns the error codes."""
+        root = self.root
+        if isinstance(root, JitOp) and root.kernel is not None:  # one pass: the mask and the codes
+            codes = np.zeros(rows.num_rows, dtype=np.int8)  # the kernel writes only the failing rows
+            with np.errstate(all="ignore"):
+                failed = root.kernel.keep(rows.num_rows, root.arguments(Block(rows, None)), out, codes)  # type: ignore[arg-type]
+            return codes if failed else None
         with scratch.block():
             result = self._run(rows)
             if self.root.numeric:
@@ -357,6 +423,7 @@ class Prepared:
             return result.codes
 
     def __call__(self, data: pa.Table | pa.RecordBatch) -> Evaluation:
+        self._arm(data.num_rows)
         parts = self._map(self._values, _blocks(data, self.block_rows))
         values = pa.concat_arrays([v for v, _ in parts]) if len(parts) > 1 else parts[0][0]
         target = to_arrow_type(self.node.type)
@@ -371,6 +438,7 @@ class Prepared:
         """Boolean mask of the rows to keep; raises :class:`EvaluationFailed` on any row error
         (an error beats a guess), naming the row counted from ``first_row``."""
         _require_predicate(self.node)
+        self._arm(data.num_rows)
         blocks = _blocks(data, self.block_rows)
         starts = np.cumsum([0] + [b.num_rows for b in blocks]).tolist()
         mask = np.empty(starts[-1], dtype=bool)
@@ -417,12 +485,20 @@ def _raise_first(codes: np.ndarray, offset: int) -> None:
     raise EvaluationFailed(f"row {offset + row}: {error.value}", row=offset + row, error_class=error.value)
 
 
-def prepare(node: Typed, block_rows: int = BLOCK_ROWS, threads: int = THREADS) -> Prepared:
-    """Fold constants, share identical subtrees, choose a kernel family per node; compile once."""
+def prepare(node: Typed, block_rows: int = BLOCK_ROWS, threads: int = THREADS, jit: bool | None = None) -> Prepared:
+    """Fold constants, share identical subtrees, choose a kernel family per node; compile once.
+
+    ``jit``: None compiles fused numeric kernels (numba, when installed) for inputs of at least
+    ``auto_jit.MIN_ROWS`` rows; True compiles them whatever the size (an error if numba is
+    missing); False never does."""
     if block_rows < 1:
         raise InputProblem(f"block_rows must be positive, not {block_rows}")
+    if jit and not auto_jit.available():
+        raise InputProblem("jit=True needs numba: pip install 'rexpr[jit]' (and REXPR_JIT not set to 0)",
+                           code="jit_unavailable")
     folded = fold_constants(node)
-    return Prepared(Compiler().op(folded), folded, block_rows, threads)
+    compiler = Compiler(jit=jit is not False and auto_jit.available())
+    return Prepared(compiler.op(folded), folded, block_rows, threads, jit, tuple(compiler.jit_ops))
 
 
 # ------------------------------------------------------------------------------ filtering
