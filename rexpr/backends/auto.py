@@ -282,16 +282,16 @@ def _fast(node: Typed) -> bool:
 
 
 class Compiler:
-    def __init__(self, jit: bool = False) -> None:
+    def __init__(self, jit: bool = False, min_calls: int = auto_jit.MIN_CALLS) -> None:
         self.ops: dict[tuple, Op] = {}
-        self.jit = jit
+        self.jit, self.min_calls = jit, min_calls
         self.jit_ops: list[JitOp] = []
 
     def op(self, node: Typed) -> Op:
         key = _key(node)
         found = self.ops.get(key)
         if found is None:
-            if self.jit and auto_jit.fusable(node):
+            if self.jit and auto_jit.fusable(node, self.min_calls):
                 self.jit = False  # the largest fusable subtree is the one kernel; its parts are NumPy ops
                 try:
                     found = JitOp(node, self._build(node))
@@ -497,7 +497,8 @@ def prepare(node: Typed, block_rows: int = BLOCK_ROWS, threads: int = THREADS, j
         raise InputProblem("jit=True needs numba: pip install 'rexpr[jit]' (and REXPR_JIT not set to 0)",
                            code="jit_unavailable")
     folded = fold_constants(node)
-    compiler = Compiler(jit=jit is not False and auto_jit.available())
+    # Asked for, every numeric subtree with a call is compiled (the tests cover each kernel so).
+    compiler = Compiler(jit=jit is not False and auto_jit.available(), min_calls=1 if jit else auto_jit.MIN_CALLS)
     return Prepared(compiler.op(folded), folded, block_rows, threads, jit, tuple(compiler.jit_ops))
 
 

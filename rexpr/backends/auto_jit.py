@@ -41,6 +41,7 @@ from rexpr.types import Kind
 
 MIN_ROWS = 1_000_000  # below this a kernel's compile time is more than it can save
 MAX_NODES = 200  # a larger subtree's compile time grows past any saving
+MIN_CALLS = 3  # with two (price * qty > 100.0) NumPy's kernels were as fast (bench/bench_auto.py)
 MAX_NESTING = 40  # case/coalesce branches nest as blocks; Python's parser allows 100 indents
 ENV_SWITCH = "REXPR_JIT"  # "0" turns the compiled path off
 ENV_CACHE = "REXPR_JIT_CACHE"  # the directory for compiled kernels (default: the user cache)
@@ -94,12 +95,12 @@ def _node_supported(node: Typed) -> bool:
     return fid == "is_nan" and kinds == [Kind.FLOAT64]
 
 
-def fusable(node: Typed) -> bool:
-    """Whether the whole subtree can be one kernel, and is worth one (at least one call
-    below the root, at most ``MAX_NODES`` nodes)."""
+def fusable(node: Typed, min_calls: int = 1) -> bool:
+    """Whether the whole subtree can be one kernel: at most ``MAX_NODES`` nodes, at least three
+    and ``min_calls`` calls (``MIN_CALLS`` is what repays a kernel)."""
     if not isinstance(node, TCall):
         return False
-    count = 0
+    count = calls = 0
     stack: list[tuple[Typed, int]] = [(node, 0)]
     while stack:
         current, nesting = stack.pop()
@@ -107,10 +108,11 @@ def fusable(node: Typed) -> bool:
         if count > MAX_NODES or nesting > MAX_NESTING or not _node_supported(current):
             return False
         if isinstance(current, TCall):
+            calls += 1
             lazy = current.function in ("coalesce", "case")  # each later argument is one block deeper
             step = (lambda i: i // 2 + 1) if current.function == "case" else (lambda i: i + 1)
             stack.extend((arg, nesting + (step(i) if lazy else 0)) for i, arg in enumerate(current.args))
-    return count >= 3
+    return count >= 3 and calls >= min_calls
 
 
 # ------------------------------------------------------------------------------ source
