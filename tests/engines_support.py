@@ -171,4 +171,12 @@ NULL_BESIDE_ERROR = [
     # number has no real value (ISO/IEC 9075-2 6.28: 2201F).
     ("nullif(b, b) <= coalesce(nullif(b, b), sqrt(y) = y, false)",
      {"b": ("bool", [True]), "y": ("float64", [-2.5])}, "invalid_argument"),
+    # Generated seed 15, cases 1173 and 3848, reduced: PostgreSQL simplifies the right-hand side
+    # to NULL (nullif of two equal constants; null or false) and folds the comparison beside a
+    # cast that must raise ('abc' is no timestamp, ISO/IEC 9075-2 6.13: 22007).
+    ("cast(t as timestamp) < nullif(timestamp '9999-12-31 23:59:59', "
+     "coalesce(timestamp '9999-12-31 23:59:59', case when b then ts end))",
+     {"t": ("string", ["abc"]), "b": ("bool", [True]), "ts": ("timestamp", [None])}, "invalid_datetime"),
+    ("(ts in (cast(t as timestamp), ts)) > (cast(null as bool) or false and b)",
+     {"t": ("string", ["abc"]), "b": ("bool", [True]), "ts": ("timestamp", [None])}, "invalid_datetime"),
 ]

@@ -111,6 +111,8 @@ def always_null(node: Typed) -> bool:
 
     Iterative (no recursion on deep trees); a largest subtree that reads no field is
     evaluated once by the reference."""
+    from rexpr.sql.dialects._planner_constants import planner_value  # it imports this module
+
     done: dict[int, tuple[bool, bool]] = {}  # id -> (reads a field, always null)
     stack: list[tuple[Typed, bool]] = [(node, False)]
     while stack:
@@ -133,6 +135,10 @@ def always_null(node: Typed) -> bool:
             constant = [not r for r, _ in flags]
             if reads:  # each constant argument is a largest constant subtree: its value decides
                 nulls = [n or (c and evaluate_row(a, {}) is None) for a, n, c in zip(current.args, nulls, constant)]
+                # and so does an argument the planner knows without a row: PostgreSQL simplifies
+                # nullif(t, coalesce(t, x)) and null or (false and b) to NULL (generated seed 15,
+                # cases 1173 and 3848)
+                nulls = [n or (not c and planner_value(a) == (True, None)) for a, n, c in zip(current.args, nulls, constant)]
             done[id(current)] = (reads, _null_given(current, nulls, constant))
     reads, null = done[id(node)]
     if not reads and not null:
