@@ -195,7 +195,7 @@ class JitOp(Op):
 
     def __init__(self, node: Typed, fallback: Op) -> None:
         self.node, self.fallback = node, fallback
-        self.fields = [(f.path, to_arrow_type(f.type), f.type.kind) for f in auto_jit.source_of(node).fields]
+        self.fields: list[tuple[tuple[str, ...], pa.DataType, Kind]] = []  # the kernel's inputs, in order
         self.kernel: auto_jit.Kernel | None = None
         self.failed = False
 
@@ -205,7 +205,9 @@ class JitOp(Op):
         if self.kernel is not None or self.failed:
             return
         try:
-            self.kernel = auto_jit.compile_kernel(self.node)
+            source = auto_jit.source_of(self.node)  # only written for an input that is worth it
+            self.fields = [(f.path, to_arrow_type(f.type), f.type.kind) for f in source.fields]
+            self.kernel = auto_jit.Kernel(source)
         except Exception as exc:  # numba's errors have no common base; the NumPy ops stay exact
             self.failed = True
             if required:

@@ -586,9 +586,3 @@ class Kernel:
     def keep(self, length: int, arguments: list[object], out: np.ndarray, codes: np.ndarray) -> bool:
         """Writes the predicate's true rows into ``out``; whether any row raised (``codes``)."""
         return bool(self.module.run(length, *arguments, True, _NO_OUT, out, codes)[1])
-
-
-def compile_kernel(node: Typed) -> Kernel:
-    return Kernel(source_of(node))
-
-
