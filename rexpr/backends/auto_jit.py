@@ -34,8 +34,7 @@ from typing import Any, Callable
 import numpy as np
 import pyarrow as pa
 
-from rexpr.catalogue.model import ErrorClass
-from rexpr.evaluation import CODE_OF
+from rexpr.backends.auto_vectors import DIVISION_BY_ZERO, DTYPES, FAST_KINDS, INVALID_ARGUMENT, OUT_OF_RANGE
 from rexpr.typed import TCall, TField, TLiteral, Typed
 from rexpr.types import Kind
 
@@ -46,18 +45,12 @@ MAX_NESTING = 40  # case/coalesce branches nest as blocks; Python's parser allow
 ENV_SWITCH = "REXPR_JIT"  # "0" turns the compiled path off
 ENV_CACHE = "REXPR_JIT_CACHE"  # the directory for compiled kernels (default: the user cache)
 
-OUT_OF_RANGE = CODE_OF[ErrorClass.OUT_OF_RANGE]
-DIVISION_BY_ZERO = CODE_OF[ErrorClass.DIVISION_BY_ZERO]
-INVALID_ARGUMENT = CODE_OF[ErrorClass.INVALID_ARGUMENT]
-
-_DTYPES = {Kind.INT64: np.dtype(np.int64), Kind.FLOAT64: np.dtype(np.float64), Kind.BOOL: np.dtype(bool)}
 _NO_BITS = np.zeros(1, dtype=np.uint8)
 _NO_BITS.setflags(write=False)
 _NO_OUT = np.empty(1, dtype=bool)  # the keep mode (bool predicates only) writes no values
 _ZERO = {Kind.BOOL: "False", Kind.INT64: "np.int64(0)", Kind.FLOAT64: "np.float64(0.0)"}
 _COMPARE = {"eq": "==", "ne": "!=", "lt": "<", "le": "<=", "gt": ">", "ge": ">="}
 _FLOAT_BINARY = {"add": "+", "subtract": "-", "multiply": "*"}
-_NUMERIC = frozenset({Kind.BOOL, Kind.INT64, Kind.FLOAT64})
 
 
 def available() -> bool:
@@ -69,7 +62,7 @@ def available() -> bool:
 
 # ------------------------------------------------------------------------------ which subtrees
 def _node_supported(node: Typed) -> bool:
-    if node.type.kind not in _NUMERIC:
+    if node.type.kind not in FAST_KINDS:
         return False
     if isinstance(node, TLiteral):
         return node.value is None or isinstance(node.value, (bool, int, float))
@@ -77,7 +70,7 @@ def _node_supported(node: Typed) -> bool:
         return True
     assert isinstance(node, TCall)
     kinds = [a.type.kind for a in node.args]
-    if not all(k in _NUMERIC for k in kinds):
+    if not all(k in FAST_KINDS for k in kinds):
         return False
     fid, kind = node.function, node.type.kind
     if fid == "cast":
@@ -516,9 +509,9 @@ def _load(text: str, fields: tuple[TField, ...], kind: Kind) -> Any:
 def _warm(module: Any, fields: tuple[TField, ...], kind: Kind) -> None:
     arguments: list[object] = []
     for field in fields:
-        dtype = np.dtype(np.uint8) if field.type.kind is Kind.BOOL else _DTYPES[field.type.kind]
+        dtype = np.dtype(np.uint8) if field.type.kind is Kind.BOOL else DTYPES[field.type.kind]
         arguments += [_readonly(np.zeros(1, dtype)), _NO_BITS, 0, 0]
-    module.run(1, *arguments, False, np.empty(1, _DTYPES[kind]), np.empty(1, bool), np.empty(1, np.int8))
+    module.run(1, *arguments, False, np.empty(1, DTYPES[kind]), np.empty(1, bool), np.empty(1, np.int8))
 
 
 def _import(text: str, digest: str, directory: Path | None) -> Any:
@@ -566,9 +559,9 @@ class Kernel:
             if kind is Kind.BOOL:
                 data = _bitmap(buffers[1])
             elif buffers[1] is None:  # an all-null array of the type
-                data = _readonly(np.zeros(max(len(array), 1), _DTYPES[kind]))
+                data = _readonly(np.zeros(max(len(array), 1), DTYPES[kind]))
             else:
-                data = np.frombuffer(buffers[1], dtype=_DTYPES[kind], count=array.offset + len(array))[array.offset:]
+                data = np.frombuffer(buffers[1], dtype=DTYPES[kind], count=array.offset + len(array))[array.offset:]
             has_bits = array.null_count > 0
             bits = _bitmap(buffers[0]) if has_bits and buffers[0] is not None else _NO_BITS
             if has_bits and buffers[0] is None:  # a null-typed all-null array has no bitmap
@@ -577,7 +570,7 @@ class Kernel:
         return out
 
     def values(self, length: int, arguments: list[object]) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-        out = np.empty(length, _DTYPES[self.source.kind])
+        out = np.empty(length, DTYPES[self.source.kind])
         valid = np.empty(length, dtype=bool)
         codes = np.zeros(length, dtype=np.int8)
         nulls, errors = self.module.run(length, *arguments, False, out, valid, codes)
