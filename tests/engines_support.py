@@ -131,6 +131,14 @@ NULL_BESIDE_ERROR = [
     ("(cast(null as int64) >= abs(a)) is null", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
     ("coalesce(case when abs(a) > 0 then cast(null as int64) end, 1)", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
     ("(case when abs(a) > 0 then 5 else 5 end) > 3", {"a": ("int64", [-2 ** 63])}, "out_of_range"),
+    # Generated seed 16, case 2232, reduced: a null dividend must not hide the
+    # overflow of -i (ISO/IEC 9075-2 6.29: 22003; -(-2^63) has no int64 value).
+    ("y / cast(month(ts) as float64) / cast(-i as float64)",
+     {"y": ("float64", [1.0]), "ts": ("timestamp", [None]), "i": ("int64", [-2 ** 63])}, "out_of_range"),
+    # Generated seed 16, case 839: MariaDB folds "v is null" to false where it infers that v is
+    # never null, so the modulo by zero (ISO/IEC 9075-2 6.29: 22012) was not evaluated.
+    ("coalesce(cast(i % j as bool), false) is null", {"i": ("int64", [2]), "j": ("int64", [0])},
+     "division_by_zero"),
     ("cast(nullif(ts, cast(s as timestamp)) as string) = 'x'", {"ts": ("timestamp", [None]), "s": ("string", ["abc"])},
      "invalid_datetime"),
     # The tester's 64-row case, reduced: on the one row where ts is null, cast(s as timestamp)
