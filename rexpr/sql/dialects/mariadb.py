@@ -813,7 +813,10 @@ _FAITHFUL: dict[str, Lowerer] = {
     "is_nan": lambda ctx, node, args: t.ne(args[0], args[0]),  # DOUBLE has no NaN: false, or null
     **{op: (lambda op: lambda ctx, node, args: compare(op, node.args[0].type.kind, *args))(op) for op in t.COMPARE},
     "is_distinct_from": bound(_is_distinct),
-    "is_null": lambda ctx, node, args: t.is_null(args[0]),
+    # coalesce(cast(i % j as bool), false) is null was folded to 0 with the modulo by zero never
+    # evaluated (generated seed 16, case 839)
+    "is_null": lambda ctx, node, args: (_evaluated_null_test(args[0]) if _logic.may_raise(node.args[0], SQL)
+                                        else t.is_null(args[0])),
     "and": lambda ctx, node, args: _logic.chain(ctx, node, args, SQL, conjunction=True),
     "or": lambda ctx, node, args: _logic.chain(ctx, node, args, SQL, conjunction=False),
     "not": lambda ctx, node, args: t.not_(args[0]),
