@@ -184,3 +184,35 @@ def test_int64_multiply_by_a_literal_is_exact_at_the_bounds():
                     assert got == exact, (text, x, got)
                 else:
                     assert _error(got) == "out_of_range", (text, x, got)
+
+
+def test_lazy_branches_computed_early_keep_their_errors_to_the_rows_that_reach_them():
+    # case and coalesce evaluate only what a row reaches (ISO/IEC 9075-2 6.12: a CASE's result
+    # is the first true WHEN's THEN); the kernel computes small branches on every row and must
+    # drop their errors elsewhere: sqrt of a negative (2201F), -(-2^63) (22003), x / 0.0 (22012).
+    schema = Schema.from_mapping({"x": "float64", "a": "int64", "p": "bool"})
+    table = pa.table({"x": [-4.0, 4.0, 0.0, None, -1.0], "a": [INT64_MIN, 5, INT64_MIN, 1, None],
+                      "p": [False, True, None, True, False]})
+    for text in ["case when x > 0.0 then sqrt(x) else -x end",
+                 "case when a > 0 then -a when p then 1 else a end",
+                 "case when p then x / 0.0 else x * 2.0 end",
+                 "coalesce(case when p then a end, -a, 0) > 0",
+                 "case when x >= 0.0 then sqrt(x) when a < 0 then -1.0 else sqrt(x) end > 1.0"]:
+        _check(text, table, schema)
+
+
+def test_a_stream_compiles_once_it_has_passed_the_row_threshold(monkeypatch, tmp_path):
+    monkeypatch.setenv(auto_jit.ENV_CACHE, str(tmp_path))
+    monkeypatch.setattr(auto_jit, "MIN_ROWS", 300_000)
+    schema = Schema.from_mapping({"x": "float64", "y": "float64"})
+    batch = pa.record_batch({"x": pa.array([float(i % 97) for i in range(100_000)]),
+                             "y": pa.array([float(i % 13) for i in range(100_000)])})
+    compiled = rexpr.compile("x * y > 40.0 and x - y < 50.0", schema)
+    kernels_after = []
+    kept = 0
+    for part in auto.filter_batches(compiled, (batch for _ in range(5))):
+        kernels_after.append(len(list(tmp_path.glob("rexpr_jit_*.py"))))
+        kept += part.num_rows
+    assert kernels_after == [0, 0, 1, 1, 1]  # compiled with the third batch: 300,000 rows seen
+    xs, ys = batch["x"].to_pylist(), batch["y"].to_pylist()
+    assert kept == 5 * sum(1 for x, y in zip(xs, ys) if x * y > 40.0 and x - y < 50.0)  # Python's floats

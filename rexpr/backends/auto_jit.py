@@ -13,6 +13,12 @@ leftmost failing argument, then nulls, then the function's own errors; ``and``/`
 absorbing operand beat an error; ``case`` and ``coalesce`` only evaluate what a row reaches.
 Floats follow IEEE 754 (numba's default, no fast-math): NaN compares false, ``-0.0 == 0.0``.
 
+What depends on the data is written without branches where that is safe: and/or with ``&``
+and ``|``, a state picked by a select, a small case or coalesce branch computed on every row
+and taken only where a row reaches it (its error is a state like any other). A branch on
+random data mispredicts about half the time; the case filter of bench/bench_auto.py ran at
+half its speed with one.
+
 numba is optional (``pip install 'rexpr[jit]'``). Compiling a kernel takes about half a second
 to a second, so the backend compiles only for inputs of at least ``MIN_ROWS`` rows; kernels
 are kept per process and, where the cache directory is writable, on disk (numba's cache,
@@ -224,6 +230,14 @@ class _Writer:
         """A null-propagating call: the leftmost error, else null if any argument is, else
         the function's own statements (which may set an error state)."""
         v, s = self.fresh()
+        statements = body(*[va for va, _ in args], v, s)
+        if len(statements) == 1 and not statements[0].startswith("if "):
+            # One statement that cannot fail: computed on every row (on a null row's garbage
+            # too, harmless: no float traps, no int64 arithmetic here can overflow) and the
+            # state selected, so no branch follows the data's nulls.
+            self.line(statements[0])
+            self.line(f"{s} = {_state(args)}")
+            return v, s
         self.line(f"{v} = {_ZERO[kind]}; {s} = 0")
         first = True
         for _, sa in args:
@@ -232,20 +246,21 @@ class _Writer:
         self.line(f"elif {' or '.join(f'{sa} < 0' for _, sa in args)}: {s} = -1")
         self.line("else:")
         self.depth += 1
-        for text in body(*[va for va, _ in args], v, s):
+        for text in statements:
             self.line(text)
         self.depth -= 1
         return v, s
 
     def _logic(self, args: list[tuple[str, str]], absorbing: bool) -> tuple[str, str]:
+        """An absorbing operand (false for and, true for or) decides the row whatever the
+        others hold; else the leftmost error, then null. Written with ``&`` and ``|`` and
+        selects, not branches: which operand decides is as random as the data."""
         v, s = self.fresh()
         hit = "" if absorbing else "not "
-        decided = " or ".join(f"({sa} == 0 and {hit}{va})" for va, sa in args)
-        self.line(f"if {decided}: {v} = {absorbing}; {s} = 0")
-        for _, sa in args:
-            self.line(f"elif {sa} > 0: {v} = False; {s} = {sa}")
-        self.line(f"elif {' or '.join(f'{sa} < 0' for _, sa in args)}: {v} = False; {s} = -1")
-        self.line(f"else: {v} = {not absorbing}; {s} = 0")
+        decided = " | ".join(f"(({sa} == 0) & ({hit}{va}))" for va, sa in args)
+        self.line(f"d_{v} = {decided}")
+        self.line(f"{s} = 0 if d_{v} else {_state(args)}")
+        self.line(f"{v} = d_{v}" if absorbing else f"{v} = (not d_{v}) & ({s} == 0)")
         return v, s
 
     def _is_null(self, arg: tuple[str, str]) -> tuple[str, str]:
@@ -288,8 +303,9 @@ class _Writer:
         kind = node.type.kind
         self.line(f"{v} = {_ZERO[kind]}; {s} = -1")
         opened = 0
-        for arg in node.args:
-            result = self.emit(arg)
+        early = {i: self.emit(arg) for i, arg in enumerate(node.args) if _cheap(arg)}
+        for i, arg in enumerate(node.args):
+            result = early.get(i) or self.emit(arg)
             self.line(f"if {result[1]} != -1:")
             self.depth += 1
             self._take(v, s, result, kind, arg.type.kind)
@@ -309,19 +325,51 @@ class _Writer:
         args = node.args
         self.line(f"{v} = {_ZERO[kind]}; {s} = -1")
         opened = 0
+        early = {i: self.emit(arg) for i, arg in enumerate(args) if i % 2 == 1 or i == len(args) - 1
+                 if _cheap(arg)}
         for i in range(0, len(args) - 1, 2):
             cv, cs = self.emit(args[i])
             self.line(f"if {cs} > 0: {s} = {cs}")
-            self.line(f"elif {cs} == 0 and {cv}:")
+            self.line(f"elif ({cs} == 0) & {cv}:")
             self.depth += 1
-            self._take(v, s, self.emit(args[i + 1]), kind, args[i + 1].type.kind)
+            self._take(v, s, early.get(i + 1) or self.emit(args[i + 1]), kind, args[i + 1].type.kind)
             self.depth -= 1
             self.line("else:")
             self.depth += 1
             opened += 1
-        self._take(v, s, self.emit(args[-1]), kind, args[-1].type.kind)
+        self._take(v, s, early.get(len(args) - 1) or self.emit(args[-1]), kind, args[-1].type.kind)
         self.depth -= opened
         return v, s
+
+
+CHEAP_NODES = 8  # a case or coalesce argument this small is worth computing on every row
+
+
+def _cheap(node: Typed) -> bool:
+    """Whether a lazy argument is small enough to compute before the branch that picks it.
+    Safe whatever it holds: its error is a state like any other, taken only by the rows that
+    reach it; what is saved is the branch on random data and its mispredictions."""
+    count = 0
+    stack = [node]
+    while stack:
+        current = stack.pop()
+        count += 1
+        if count > CHEAP_NODES:
+            return False
+        if isinstance(current, TCall):
+            if current.function in ("case", "coalesce"):
+                return False
+            stack.extend(current.args)
+    return True
+
+
+def _state(args: list[tuple[str, str]]) -> str:
+    """The state of a null-propagating call as one expression: the leftmost argument's error,
+    else null (-1) if any argument is, else 0."""
+    text = f"-1 if {' | '.join(f'({sa} < 0)' for _, sa in args)} else 0"
+    for _, sa in reversed(args):
+        text = f"{sa} if {sa} > 0 else ({text})"
+    return text
 
 
 def _kernel(node: TCall) -> Callable[..., list[str]]:
@@ -400,8 +448,7 @@ def _float_to_int(a: str, v: str, s: str) -> list[str]:
     return [f"if {a} >= -9223372036854775808.0 and {a} < 9223372036854775808.0:",
             f"    t_ = np.int64({a})",
             f"    f_ = {a} - np.float64(t_)",
-            "    if f_ >= 0.5: t_ += 1",
-            "    elif f_ <= -0.5: t_ -= 1",
+            "    t_ += np.int64(f_ >= 0.5) - np.int64(f_ <= -0.5)",  # no branch: fractions are random
             f"    {v} = t_",
             f"else: {s} = {OUT_OF_RANGE}"]
 
@@ -452,12 +499,12 @@ def source_of(node: Typed) -> Source:
         "    for i in range(length):",
         body,
         "        if keep:",  # the mask goes where validity would: one signature, one compile
-        f"            valid[i] = {s} == 0 and {v}",
+        f"            valid[i] = ({s} == 0) & {v}" if node.type.kind is Kind.BOOL else "            valid[i] = False",
         "        else:",
         f"            out[i] = {v}",
         f"            valid[i] = {s} == 0",
-        f"        if {s} < 0: nulls += 1",
-        f"        elif {s} > 0:",  # codes comes zeroed (calloc'd pages): only errors are written
+        f"        nulls += np.int64({s} < 0)",
+        f"        if {s} > 0:",  # codes comes zeroed (calloc'd pages): only errors are written
         f"            codes[i] = {s}",
         "            errors += 1",
         "    return nulls, errors",
