@@ -509,23 +509,26 @@ def _tree(compiled: object) -> Typed:
     return getattr(compiled, "tree", compiled)  # a CompiledExpression or a typed tree
 
 
-def filter_table(compiled: object, table: pa.Table | pa.RecordBatch, block_rows: int = BLOCK_ROWS) -> pa.Table:
+def filter_table(compiled: object, table: pa.Table | pa.RecordBatch, block_rows: int = BLOCK_ROWS,
+                 jit: bool | None = None) -> pa.Table:
     """The rows where the predicate is true. The mask is computed in blocks, the take once."""
-    return prepare(_tree(compiled), block_rows).filter(table)
+    return prepare(_tree(compiled), block_rows, jit=jit).filter(table)
 
 
 def filter_batches(compiled: object, batches: Iterable[pa.RecordBatch],
-                   block_rows: int = BLOCK_ROWS) -> Iterator[pa.RecordBatch]:
+                   block_rows: int = BLOCK_ROWS, jit: bool | None = None) -> Iterator[pa.RecordBatch]:
     """Stream the kept rows: each incoming batch is masked in blocks and filtered, so a large
     scan (``pyarrow.dataset`` ``to_batches``) never holds more than the current batch. Batches
     with no kept row are skipped. A row error raises :class:`EvaluationFailed` with the row
-    counted across the whole stream."""
-    prepared = prepare(_tree(compiled), block_rows)
+    counted across the whole stream. The fused kernels are compiled once the stream has
+    passed ``auto_jit.MIN_ROWS`` rows (a scan's batches are each far smaller)."""
+    prepared = prepare(_tree(compiled), block_rows, jit=jit)
     _require_predicate(prepared.node)
     temporal = temporal_fields(prepared.node)
     seen = 0
     for batch in batches:
         check_temporal_range(batch, temporal)
+        prepared._arm(seen + batch.num_rows)
         keep = prepared.keep(batch, first_row=seen)
         seen += batch.num_rows
         if keep.any():
