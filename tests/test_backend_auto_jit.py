@@ -216,3 +216,21 @@ def test_a_stream_compiles_once_it_has_passed_the_row_threshold(monkeypatch, tmp
     assert kernels_after == [0, 0, 1, 1, 1]  # compiled with the third batch: 300,000 rows seen
     xs, ys = batch["x"].to_pylist(), batch["y"].to_pylist()
     assert kept == 5 * sum(1 for x, y in zip(xs, ys) if x * y > 40.0 and x - y < 50.0)  # Python's floats
+
+
+def test_the_kernel_cache_keeps_the_most_recently_used(monkeypatch, tmp_path):
+    monkeypatch.setenv(auto_jit.ENV_CACHE, str(tmp_path))
+    monkeypatch.setattr(auto_jit, "MAX_CACHED", 2)
+    monkeypatch.setattr(auto_jit, "_LOADED", {})  # this process's kernels: each text is loaded anew
+    table = pa.table({"a": [1, 2, 3], "b": [4, 5, -6]})
+    texts = [f"a * {c} + b > 7" for c in (2, 3, 5)]
+    for text in texts:
+        observed = auto.prepare(rexpr.compile(text, INTS).tree, jit=True)(table).to_pylist()
+        # Python's integers decide the expected values.
+        factor = int(text.split()[2])
+        assert observed == [a * factor + b > 7 for a, b in zip([1, 2, 3], [4, 5, -6])]
+    kernels = sorted(tmp_path.glob("rexpr_jit_*.py"))
+    assert len(kernels) == 2
+    kept = {k.stem for k in kernels}
+    numba_files = {p.name.split(".")[0] for p in (tmp_path / "__pycache__").glob("rexpr_jit_*")}
+    assert numba_files <= kept  # the pruned kernel's compiled files went with it

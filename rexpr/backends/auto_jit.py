@@ -50,6 +50,7 @@ MIN_CALLS = 3  # with two (price * qty > 100.0) NumPy's kernels were as fast (be
 MAX_NESTING = 40  # case/coalesce branches nest as blocks; Python's parser allows 100 indents
 ENV_SWITCH = "REXPR_JIT"  # "0" turns the compiled path off
 ENV_CACHE = "REXPR_JIT_CACHE"  # the directory for compiled kernels (default: the user cache)
+MAX_CACHED = 128  # kernels kept on disk (about 200 KB each with numba's files); older ones are pruned
 
 _NO_BITS = np.zeros(1, dtype=np.uint8)
 _NO_BITS.setflags(write=False)
@@ -568,16 +569,46 @@ def _import(text: str, digest: str, directory: Path | None) -> Any:
         exec(compile(text, name, "exec"), namespace)  # noqa: S102 - our own generated source
         return type("Kernels", (), {"run": namespace["run"]})
     path = directory / f"{name}.py"
-    if not path.exists():  # written whole, then renamed: never a half file
+    if path.exists():
+        _touch(path)  # recently used: the last to be pruned
+    else:  # written whole, then renamed: never a half file
         with tempfile.NamedTemporaryFile("w", dir=directory, suffix=".tmp", delete=False) as handle:
             handle.write(text.replace("cache=CACHE", "cache=True"))
         os.replace(handle.name, path)
+        prune(directory)
     spec = importlib.util.spec_from_file_location(name, path)
     assert spec is not None and spec.loader is not None
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module  # numba's cache finds the kernels' globals through it
     spec.loader.exec_module(module)
     return module
+
+
+def _touch(path: Path) -> None:
+    try:
+        os.utime(path)
+    except OSError:
+        pass
+
+
+def prune(directory: Path, keep: int | None = None) -> int:
+    """Deletes all but the ``keep`` most recently used kernels (default ``MAX_CACHED``) with
+    numba's files for them; how many were deleted. Another process that loses a kernel this
+    way compiles it again in memory (``_load`` passes over a cache entry that fails)."""
+    keep = MAX_CACHED if keep is None else keep
+    def used(path: Path) -> float:
+        try:
+            return path.stat().st_mtime
+        except OSError:
+            return 0.0
+    kernels = sorted(directory.glob("rexpr_jit_*.py"), key=used, reverse=True)
+    for old in kernels[keep:]:
+        for path in [old, *(directory / "__pycache__").glob(f"{old.stem}.*")]:
+            try:
+                path.unlink()
+            except OSError:
+                pass  # gone already, or not ours to delete: the next prune tries again
+    return max(len(kernels) - keep, 0)
 
 
 def _readonly(array: np.ndarray) -> np.ndarray:
