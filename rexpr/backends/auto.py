@@ -31,7 +31,7 @@ from rexpr.backends import arrow as arrow_backend
 from rexpr.backends import auto_jit
 from rexpr.backends import auto_vectors as vx
 from rexpr.backends.auto_scratch import ScratchSet
-from rexpr.backends.auto_vectors import FAST_KINDS, Vec
+from rexpr.backends.auto_vectors import Vec
 from rexpr.errors import EvaluationFailed, InputProblem
 from rexpr.evaluation import ERROR_CODES, Evaluation
 from rexpr.folding import fold_constants
@@ -260,29 +260,6 @@ def _key(node: Typed) -> tuple:
     return ("call", node.function, node.type, tuple(_key(a) for a in node.args))
 
 
-def _fast(node: Typed) -> bool:
-    """Whether this node itself runs in NumPy (its children are decided separately)."""
-    if node.type.kind not in FAST_KINDS:
-        return False
-    if isinstance(node, (TLiteral, TField)):
-        return True
-    kinds = [a.type.kind for a in node.args]
-    if not all(k in FAST_KINDS for k in kinds):
-        return False
-    fid, kind = node.function, node.type.kind
-    if fid == "cast":
-        return kinds[0] is kind or (kinds[0], kind) in vx.CAST_KERNELS
-    if fid in vx.COMPARE_KERNELS or fid in ("is_distinct_from", "nullif", "in", "between"):
-        return len(set(kinds)) == 1
-    if fid in ("floor", "ceil") and kind is Kind.INT64:
-        return True
-    if fid in vx.INT_KERNELS and kind is Kind.INT64:
-        return True
-    if fid in vx.FLOAT_KERNELS and kinds[0] is Kind.FLOAT64:
-        return True
-    return fid in ("and", "or", "not", "is_null", "coalesce", "case")
-
-
 class Compiler:
     def __init__(self, jit: bool = False, min_calls: int = auto_jit.MIN_CALLS) -> None:
         self.ops: dict[tuple, Op] = {}
@@ -306,7 +283,7 @@ class Compiler:
         return found
 
     def _build(self, node: Typed) -> Op:
-        if not _fast(node):
+        if not vx.runs_in_numpy(node):
             return ArrowOp(node)
         if isinstance(node, TLiteral):
             return LiteralOp(node)

@@ -40,7 +40,7 @@ from typing import Any, Callable
 import numpy as np
 import pyarrow as pa
 
-from rexpr.backends.auto_vectors import DIVISION_BY_ZERO, DTYPES, FAST_KINDS, INVALID_ARGUMENT, OUT_OF_RANGE
+from rexpr.backends.auto_vectors import DIVISION_BY_ZERO, DTYPES, INVALID_ARGUMENT, OUT_OF_RANGE, runs_in_numpy
 from rexpr.typed import TCall, TField, TLiteral, Typed
 from rexpr.types import Kind
 
@@ -69,7 +69,8 @@ def available() -> bool:
 
 # ------------------------------------------------------------------------------ which subtrees
 def _node_supported(node: Typed) -> bool:
-    if node.type.kind not in FAST_KINDS:
+    """The nodes the kernels write: a subset of what the NumPy path runs (their fallback)."""
+    if not runs_in_numpy(node):
         return False
     if isinstance(node, TLiteral):
         return node.value is None or isinstance(node.value, (bool, int, float))
@@ -77,22 +78,17 @@ def _node_supported(node: Typed) -> bool:
         return True
     assert isinstance(node, TCall)
     kinds = [a.type.kind for a in node.args]
-    if not all(k in FAST_KINDS for k in kinds):
-        return False
     fid, kind = node.function, node.type.kind
     if fid == "cast":
         return kinds[0] is kind or (kinds[0], kind) in _CASTS
-    if fid in _COMPARE or fid in ("is_distinct_from", "nullif", "in", "between"):
-        return len(set(kinds)) == 1
-    if fid in ("and", "or", "not", "is_null", "coalesce", "case"):
-        return True
     if fid in ("floor", "ceil"):
         return kinds[0] is kind
-    if kind is Kind.INT64:
-        return fid in ("add", "subtract", "multiply", "negate", "abs") and all(k is Kind.INT64 for k in kinds)
-    if kind is Kind.FLOAT64 and all(k is Kind.FLOAT64 for k in kinds):
-        return fid in ("add", "subtract", "multiply", "divide", "negate", "abs", "sqrt")
-    return fid == "is_nan" and kinds == [Kind.FLOAT64]
+    if kind is Kind.INT64 and fid in ("add", "subtract", "multiply", "negate", "abs"):
+        return all(k is Kind.INT64 for k in kinds)
+    if kind is Kind.FLOAT64 and fid in ("add", "subtract", "multiply", "divide", "negate", "abs", "sqrt"):
+        return all(k is Kind.FLOAT64 for k in kinds)
+    return fid in _COMPARE or fid in ("is_distinct_from", "nullif", "in", "between", "and", "or", "not",
+                                      "is_null", "coalesce", "case", "is_nan")
 
 
 def fusable(node: Typed, min_calls: int = 1) -> bool:

@@ -20,6 +20,7 @@ import pyarrow as pa
 from rexpr.backends.auto_scratch import empty
 from rexpr.catalogue.model import ErrorClass
 from rexpr.evaluation import CODE_OF
+from rexpr.typed import TField, TLiteral, Typed
 from rexpr.types import INT64_MAX, INT64_MIN, Kind
 
 OUT_OF_RANGE = CODE_OF[ErrorClass.OUT_OF_RANGE]
@@ -348,3 +349,26 @@ class Chooser:
 
     def result(self) -> Vec:
         return Vec(self.values, self.valid, self.codes)
+
+
+def runs_in_numpy(node: Typed) -> bool:
+    """Whether this node itself runs in NumPy (its children are decided separately)."""
+    if node.type.kind not in FAST_KINDS:
+        return False
+    if isinstance(node, (TLiteral, TField)):
+        return True
+    kinds = [a.type.kind for a in node.args]
+    if not all(k in FAST_KINDS for k in kinds):
+        return False
+    fid, kind = node.function, node.type.kind
+    if fid == "cast":
+        return kinds[0] is kind or (kinds[0], kind) in CAST_KERNELS
+    if fid in COMPARE_KERNELS or fid in ("is_distinct_from", "nullif", "in", "between"):
+        return len(set(kinds)) == 1
+    if fid in ("floor", "ceil") and kind is Kind.INT64:
+        return True
+    if fid in INT_KERNELS and kind is Kind.INT64:
+        return True
+    if fid in FLOAT_KERNELS and kinds[0] is Kind.FLOAT64:
+        return True
+    return fid in ("and", "or", "not", "is_null", "coalesce", "case")
